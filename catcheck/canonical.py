@@ -1,0 +1,133 @@
+"""Turn a record batch into canonical numpy arrays: values, 1-sigma errors, phase codes."""
+
+from __future__ import annotations
+
+from collections import Counter
+from collections.abc import Mapping
+from dataclasses import dataclass, field
+
+import numpy as np
+import pyarrow as pa
+import pyarrow.compute as pc
+
+from catcheck.profile import Profile, QuantityMapping
+from catcheck.quantities import NO_PHASE, PHASE_INDEX, QUANTITIES
+
+
+@dataclass
+class StarBatch:
+    """A slice of the catalogue in canonical units, ready for the rules.
+
+    ``values`` maps numeric quantities to float64 arrays (NaN where the catalogue has no
+    value); ``errors`` maps them to canonical 1-sigma arrays where the profile gives errors;
+    ``phase`` holds phase codes (index into PHASE_CODES, -1 for none); ``text`` holds text
+    quantities such as spectral types as Python string arrays (None for missing).
+    """
+
+    first_row: int
+    size: int
+    ids: pa.Array
+    values: dict[str, np.ndarray] = field(default_factory=dict)
+    errors: dict[str, np.ndarray] = field(default_factory=dict)
+    phase: np.ndarray | None = None
+    text: dict[str, np.ndarray] = field(default_factory=dict)
+    groups: pa.Array | None = None
+
+    def __len__(self) -> int:
+        return self.size
+
+    def has(self, quantity: str) -> np.ndarray:
+        """Rows where ``quantity`` has a usable value (not null, not NaN)."""
+        if quantity == "phase":
+            return self.phase != NO_PHASE
+        if quantity in self.text:
+            return np.array([v is not None for v in self.text[quantity]], dtype=bool)
+        return ~np.isnan(self.values[quantity])
+
+    def error_or(self, quantity: str, default: np.ndarray | float) -> np.ndarray:
+        """The catalogue's 1-sigma for ``quantity`` where given, else ``default``.
+
+        Rows whose catalogue error is missing or NaN fall back to ``default`` too.
+        """
+        given = self.errors.get(quantity)
+        default = np.broadcast_to(np.asarray(default, dtype=float), (self.size,))
+        if given is None:
+            return default
+        return np.where(np.isnan(given), default, given)
+
+    def environment(self) -> dict[str, np.ndarray]:
+        """Values by quantity name, phase codes included, for the expression language."""
+        env = dict(self.values)
+        if self.phase is not None:
+            env["phase"] = self.phase
+        return env
+
+
+class PhaseLabels:
+    """Maps catalogue phase labels to phase codes, counting labels it cannot map."""
+
+    def __init__(self, mapping: Mapping[str, str]) -> None:
+        self.mapping = {label.strip(): code for label, code in mapping.items()}
+        self.unmapped: Counter[str] = Counter()
+
+    def code_of(self, label: str) -> int:
+        """The phase code index of one label, or NO_PHASE."""
+        label = label.strip()
+        code = self.mapping.get(label) or (label.upper() if label.upper() in PHASE_INDEX
+                                           else None)
+        return PHASE_INDEX[code] if code else NO_PHASE
+
+    def codes(self, column: pa.Array) -> np.ndarray:
+        """Phase codes (int8) for a column of labels; nulls and unknown labels give -1."""
+        if not pa.types.is_dictionary(column.type):
+            column = pc.cast(column, pa.string()).dictionary_encode()
+        labels = column.dictionary.to_pylist()
+        lookup = np.array([self.code_of(str(label)) for label in labels] + [NO_PHASE],
+                          dtype=np.int8)
+        indices = column.indices.fill_null(len(labels)).to_numpy(zero_copy_only=False)
+        codes = lookup[indices]
+        unknown = [i for i, code in enumerate(lookup[:-1]) if code == NO_PHASE]
+        if unknown:
+            counts = np.bincount(indices, minlength=len(labels) + 1)
+            for i in unknown:
+                if counts[i]:
+                    self.unmapped[str(labels[i])] += int(counts[i])
+        return codes
+
+
+def to_float(column: pa.Array) -> np.ndarray:
+    """A numeric Arrow column as a float64 numpy array with NaN for nulls."""
+    if not pa.types.is_floating(column.type) or column.type != pa.float64():
+        column = pc.cast(column, pa.float64())
+    return column.to_numpy(zero_copy_only=False)
+
+
+def canonical_batch(profile: Profile, batch: pa.RecordBatch, first_row: int,
+                    phases: PhaseLabels) -> StarBatch:
+    """Convert one record batch to canonical units following the profile."""
+    stars = StarBatch(first_row, batch.num_rows, pc.cast(batch[profile.id_column], pa.string()))
+    if profile.group_column:
+        stars.groups = batch[profile.group_column]
+    for name, mapping in profile.quantities.items():
+        column = batch[mapping.column]
+        if name == "phase":
+            stars.phase = phases.codes(column)
+        elif not QUANTITIES[name].numeric:
+            stars.text[name] = np.asarray(pc.cast(column, pa.string()).to_pylist(), dtype=object)
+        else:
+            _add_numeric(stars, mapping, batch)
+    return stars
+
+
+def _add_numeric(stars: StarBatch, mapping: QuantityMapping, batch: pa.RecordBatch) -> None:
+    assert mapping.conversion is not None
+    raw = to_float(batch[mapping.column])
+    values = mapping.conversion.values(raw)
+    stars.values[mapping.quantity] = values
+    if mapping.error_column is not None:
+        errors = to_float(batch[mapping.error_column])
+    elif mapping.error_value is not None:
+        errors = np.full(stars.size, mapping.error_value)
+    else:
+        return
+    stars.errors[mapping.quantity] = mapping.conversion.errors(values, errors)

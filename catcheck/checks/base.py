@@ -1,0 +1,75 @@
+"""What a check is: a documented, vectorised function over a :class:`StarBatch`.
+
+A *check* is code (this package); a *rule* is data (a TOML entry in a rule pack) that names
+a check, gives it an id, a severity and params.  Keeping them apart lets one check serve
+several rules (the physical ranges) and lets packs be edited without touching code.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable, Mapping
+from dataclasses import dataclass, field
+from typing import Any
+
+import numpy as np
+
+from catcheck.canonical import StarBatch
+
+Params = Mapping[str, Any]
+
+
+@dataclass(frozen=True)
+class Documentation:
+    """A check's documentation under fixed headings; ``catcheck explain`` renders it."""
+
+    what: str
+    why: str
+    formula: str
+    caveats: str
+    example: str
+    references: tuple[str, ...]
+
+
+@dataclass
+class Outcome:
+    """A check's verdict on one batch.
+
+    ``failed`` is a boolean mask over the batch; ``observed``, ``expected`` and
+    ``deviation`` (in combined sigma) are arrays of the batch length or None; ``describe``
+    turns positions of failing rows into one message each.
+    """
+
+    failed: np.ndarray
+    describe: Callable[[np.ndarray], list[str]]
+    observed: np.ndarray | None = None
+    expected: np.ndarray | None = None
+    deviation: np.ndarray | None = None
+
+
+@dataclass(frozen=True)
+class Check:
+    """A built-in check: its name, what it needs, its default params and its code."""
+
+    name: str
+    needs: Callable[[Params], tuple[str, ...]]
+    evaluate: Callable[[StarBatch, Params], Outcome]
+    doc: Documentation
+    #: param name -> default value; a type (``float``, ``str``) marks a required param
+    defaults: Mapping[str, Any] = field(default_factory=dict)
+    uses_errors: bool = True
+
+
+def fixed_needs(*quantities: str) -> Callable[[Params], tuple[str, ...]]:
+    """A ``needs`` function for a check whose quantities do not depend on params."""
+    return lambda params: quantities
+
+
+def combined_sigma(*terms: np.ndarray | float, floor: float = 0.0) -> np.ndarray:
+    """Quadrature sum of independent 1-sigma terms, never below ``floor``."""
+    total = sum(np.square(np.asarray(t, dtype=float)) for t in terms)
+    return np.maximum(np.sqrt(total), floor)
+
+
+def fmt(value: float) -> str:
+    """A number for a message: 4 significant digits, no needless exponent."""
+    return f"{value:.4g}"

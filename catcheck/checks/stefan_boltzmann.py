@@ -1,0 +1,80 @@
+"""``stefan_boltzmann``: luminosity, radius and Teff must obey L = 4 pi R^2 sigma Teff^4."""
+
+from __future__ import annotations
+
+import numpy as np
+
+from catcheck.canonical import StarBatch
+from catcheck.checks.base import Check, Documentation, Outcome, Params, combined_sigma, fixed_needs
+from catcheck.physics.stellar import LN10, log_luminosity_stefan_boltzmann
+
+DOC = Documentation(
+    what="Compares the catalogued luminosity with the one implied by the catalogued radius "
+    "and effective temperature.",
+    why="Teff is defined through the Stefan-Boltzmann law, so L, R and Teff of one star "
+    "cannot be chosen independently: a mismatch means one of the three is wrong (often a "
+    "unit or log/linear mix-up, or values taken from different sources).",
+    formula="log L = 2 log R + 4 log(Teff / 5772 K)   (solar units, IAU 2015 nominal values)\n"
+    "sigma^2 = s_logL^2 + (2 s_R / (R ln10))^2 + (4 s_Teff / (Teff ln10))^2, "
+    "sigma >= floor_dex\n"
+    "flag when |log L_cat - log L_SB| > threshold * sigma",
+    caveats="Exact by definition for a single star, but: an unresolved binary's combined "
+    "luminosity with one component's radius and Teff reads up to 0.3 dex high; radii of very "
+    "cool dwarfs (L/T types) are model-dependent; rapid rotators (gravity darkening) and "
+    "stars with extended atmospheres have ill-defined radii; luminosities derived from "
+    "photometry carry distance and extinction errors that catalogues often omit.",
+    example="Teff = 5772 K, R = 1.0 Rsun predicts log L = 0.00; a catalogue log L of 0.50 "
+    "with 0.05 dex error (R and Teff errors 2% each, adding 0.0087 and 0.035 dex) is "
+    "0.50 / 0.062 = 8.1 sigma off and is flagged.",
+    references=(
+        "Stefan (1879); Boltzmann (1884): L = 4 pi R^2 sigma T^4",
+        "IAU 2015 Resolution B3 (nominal solar radius, luminosity, Teff)",
+        "CODATA 2018 (Stefan-Boltzmann constant)",
+    ),
+)
+
+
+def evaluate(batch: StarBatch, params: Params) -> Outcome:
+    """Flag rows whose log L departs from 2 log R + 4 log(Teff/Teff_sun) by > threshold sigma."""
+    luminosity = batch.values["luminosity"]
+    radius = batch.values["radius"]
+    teff = batch.values["teff"]
+    with np.errstate(divide="ignore", invalid="ignore"):
+        observed = np.log10(luminosity)
+        s_logl = batch.error_or("luminosity", params["assumed_luminosity_dex"] * luminosity
+                                * LN10) / (luminosity * LN10)
+        s_r = batch.error_or("radius", params["assumed_radius_fraction"] * radius) / radius
+        s_t = batch.error_or("teff", params["assumed_teff_fraction"] * teff) / teff
+    expected = log_luminosity_stefan_boltzmann(radius, teff)
+    sigma = combined_sigma(s_logl, 2.0 * s_r / LN10, 4.0 * s_t / LN10,
+                           params["intrinsic_dex"], floor=params["floor_dex"])
+    with np.errstate(invalid="ignore"):
+        deviation = np.abs(observed - expected) / sigma
+        failed = deviation > params["threshold"]
+
+    def describe(rows: np.ndarray) -> list[str]:
+        return [
+            f"log L = {observed[i]:.2f} dex(Lsun) but R = {radius[i]:.3g} Rsun and "
+            f"Teff = {teff[i]:.0f} K give {expected[i]:.2f}: off by "
+            f"{observed[i] - expected[i]:+.2f} dex, {deviation[i]:.1f} sigma "
+            f"(sigma {sigma[i]:.3f} dex)"
+            for i in rows
+        ]
+
+    return Outcome(failed, describe, observed, expected, deviation)
+
+
+CHECK = Check(
+    name="stefan_boltzmann",
+    needs=fixed_needs("luminosity", "radius", "teff"),
+    evaluate=evaluate,
+    doc=DOC,
+    defaults={
+        "threshold": 5.0,
+        "floor_dex": 0.02,
+        "intrinsic_dex": 0.0,
+        "assumed_luminosity_dex": 0.05,
+        "assumed_radius_fraction": 0.05,
+        "assumed_teff_fraction": 0.02,
+    },
+)

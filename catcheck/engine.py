@@ -1,0 +1,174 @@
+"""The check engine: stream batches, evaluate rules, count, and hand flags to a sink.
+
+Per batch: canonical arrays (:mod:`catcheck.canonical`), then the column-schema layer
+(pandera, for the physical ranges), then the row rules.  Per rule it counts rows checked
+(every needed value present), skipped (some needed value missing or NaN: never flagged)
+and flagged.  Memory is bounded by the batch size: flags leave through ``sink`` as they
+are found, and only counts and a few examples per rule stay behind.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable, Iterator, Sequence
+from dataclasses import dataclass, field
+from typing import Any, Protocol
+
+import numpy as np
+import pyarrow as pa
+
+from catcheck.canonical import PhaseLabels, StarBatch, canonical_batch
+from catcheck.checks.base import Outcome
+from catcheck.checks.physical_range import RangeSchema
+from catcheck.flags import flag_records
+from catcheck.packs import SEVERITY_RANK, Rule
+from catcheck.profile import Profile
+from catcheck.quantities import QUANTITIES
+
+EXAMPLES_PER_RULE = 5
+
+
+class Catalogue(Protocol):
+    """What the engine needs of an input: a schema, a size and ordered batches."""
+
+    schema: pa.Schema
+    num_rows: int
+
+    @property
+    def description(self) -> str: ...
+
+    def check_columns(self, columns: Sequence[str]) -> None: ...
+
+    def batches(self, columns: Sequence[str], batch_rows: int
+                ) -> Iterator[tuple[int, pa.RecordBatch]]: ...
+
+
+@dataclass
+class RuleStats:
+    """Counts for one rule over the whole run."""
+
+    rule: Rule
+    status: str = "ran"
+    checked: int = 0
+    skipped: int = 0
+    flagged: int = 0
+    assumed_errors: list[str] = field(default_factory=list)
+    examples: list[dict[str, Any]] = field(default_factory=list)
+
+    def as_dict(self) -> dict[str, Any]:
+        """The rule's entry in summary.json."""
+        entry: dict[str, Any] = {
+            "id": self.rule.id,
+            "pack": self.rule.pack,
+            "severity": self.rule.severity,
+            "summary": self.rule.summary,
+            "status": self.status,
+            "checked": self.checked,
+            "skipped": self.skipped,
+            "flagged": self.flagged,
+        }
+        if self.assumed_errors:
+            entry["assumed_errors"] = self.assumed_errors
+        return entry
+
+
+@dataclass
+class RunStats:
+    """Everything the engine learned, apart from the flags themselves."""
+
+    rows: int = 0
+    rules: list[RuleStats] = field(default_factory=list)
+    flagged_rows: int = 0
+    rows_by_severity: dict[str, int] = field(default_factory=dict)
+    flags_by_severity: dict[str, int] = field(default_factory=dict)
+    unmapped_phase_labels: dict[str, int] = field(default_factory=dict)
+
+
+FlagSink = Callable[[pa.Table], None]
+
+
+def run_rules(catalogue: Catalogue, profile: Profile, rules: Sequence[Rule], sink: FlagSink,
+              batch_rows: int, progress: Callable[[int], None] | None = None) -> RunStats:
+    """Check every row of ``catalogue`` against ``rules``; flags go to ``sink``."""
+    profile.validate_columns(catalogue.schema, catalogue.description)
+    catalogue.check_columns(profile.columns)
+    stats = RunStats(rules=[_prepare(rule, profile) for rule in rules])
+    runnable = [s for s in stats.rules if s.status == "ran"]
+    ranges = [s.rule for s in runnable if s.rule.check.name == "physical_range"]
+    schema = RangeSchema(ranges) if ranges else None
+    order = {s.rule.id: i for i, s in enumerate(stats.rules)}
+    phases = PhaseLabels(profile.phases)
+    stats.rows_by_severity = dict.fromkeys(SEVERITY_RANK, 0)
+    stats.flags_by_severity = dict.fromkeys(SEVERITY_RANK, 0)
+
+    for first_row, batch in catalogue.batches(profile.columns, batch_rows):
+        stars = canonical_batch(profile, batch, first_row, phases)
+        outcomes = schema.validate(stars) if schema else {}
+        tables = []
+        for rule_stats in runnable:
+            rule = rule_stats.rule
+            outcome = outcomes.get(rule.id) or rule.check.evaluate(stars, rule.params)
+            tables.append(_record(rule_stats, stars, outcome))
+        stats.rows += stars.size
+        flags = _merge(tables, order)
+        if flags.num_rows:
+            _count_rows(stats, flags)
+            sink(flags)
+        if progress:
+            progress(stars.size)
+    stats.unmapped_phase_labels = dict(sorted(phases.unmapped.items()))
+    return stats
+
+
+def _prepare(rule: Rule, profile: Profile) -> RuleStats:
+    stats = RuleStats(rule)
+    missing = [q for q in rule.needs if not profile.provides(q)]
+    if missing:
+        stats.status = f"not-run: missing {', '.join(missing)}"
+    elif rule.check.uses_errors:
+        stats.assumed_errors = [
+            q for q in rule.needs
+            if QUANTITIES[q].numeric and q in profile.quantities
+            and profile.quantities[q].error_column is None
+            and profile.quantities[q].error_value is None
+        ]
+    return stats
+
+
+def _record(stats: RuleStats, stars: StarBatch, outcome: Outcome) -> pa.Table:
+    available = np.ones(stars.size, dtype=bool)
+    for quantity in stats.rule.needs:
+        available &= stars.has(quantity)
+    checked = int(available.sum())
+    stats.checked += checked
+    stats.skipped += stars.size - checked
+    positions = np.flatnonzero(outcome.failed & available)
+    stats.flagged += len(positions)
+    table = flag_records(stats.rule.id, stats.rule.severity, stars.first_row, positions,
+                         stars.ids, outcome.describe(positions), outcome.observed,
+                         outcome.expected, outcome.deviation)
+    room = EXAMPLES_PER_RULE - len(stats.examples)
+    if room > 0 and table.num_rows:
+        stats.examples.extend(table.slice(0, room).to_pylist())
+    return table
+
+
+def _merge(tables: list[pa.Table], order: dict[str, int]) -> pa.Table:
+    flags = pa.concat_tables(tables)
+    if flags.num_rows == 0:
+        return flags
+    rule_order = np.array([order[r] for r in flags["rule"].to_pylist()])
+    rows = flags["row"].to_numpy()
+    return flags.take(pa.array(np.lexsort((rule_order, rows))))
+
+
+def _count_rows(stats: RunStats, flags: pa.Table) -> None:
+    rows = flags["row"].to_numpy()
+    severity = flags["severity"].to_pylist()
+    rank = np.array([SEVERITY_RANK[s] for s in severity], dtype=np.int8)
+    unique, inverse = np.unique(rows, return_inverse=True)
+    worst = np.full(len(unique), -1, dtype=np.int8)
+    np.maximum.at(worst, inverse, rank)
+    stats.flagged_rows += len(unique)
+    for name, value in SEVERITY_RANK.items():
+        stats.rows_by_severity[name] += int((worst == value).sum())
+        stats.flags_by_severity[name] += int((rank == value).sum())
