@@ -232,13 +232,17 @@ def _expression_check(entry: Mapping[str, Any], where: str) -> Check:
                                   names)
     except ExpressionError as exc:
         raise RulePackError(f"invalid expression\n{exc}", where=where) from None
+    for key, expression in (("when", when), ("require", require)):
+        if not expression.boolean:
+            raise RulePackError(f"{key} = {expression.text!r} is a number, not a condition",
+                                where=where, fix=f"compare it, e.g. {key} = \"teff < 5800\"")
     needed = tuple(sorted(when.names | require.names | message.names))
 
     def evaluate(batch: StarBatch, params: Params) -> Outcome:
         env = batch.environment()
         with np.errstate(all="ignore"):
-            failed = np.asarray(when.evaluate(env), dtype=bool) & ~np.asarray(
-                require.evaluate(env), dtype=bool)
+            failed = when.evaluate(env, size=batch.size) & ~require.evaluate(env,
+                                                                             size=batch.size)
         return Outcome(failed, lambda rows: message.render(env, rows))
 
     doc = Documentation(

@@ -1,0 +1,196 @@
+"""The engine end to end through the Python API: counts, skips, flags, gate, batching."""
+
+from __future__ import annotations
+
+import json
+
+import numpy as np
+import pandas as pd
+import pytest
+from factory import PROFILE_TOML, sun_like, write_catalogue
+
+import catcheck
+from catcheck.profile import profile_from_dict
+from catcheck.toml import loads
+
+PROFILE = profile_from_dict(loads(PROFILE_TOML))
+
+
+def stats(result: catcheck.CheckResult, rule_id: str) -> dict:
+    return next(r for r in result.summary["rules"] if r["id"] == rule_id)
+
+
+def test_consistent_stars_give_no_flag() -> None:
+    result = catcheck.check_frame(sun_like(500), PROFILE)
+    assert result.flags.empty
+    assert result.passed
+    sb = stats(result, "stefan-boltzmann")
+    assert (sb["checked"], sb["skipped"], sb["flagged"]) == (500, 0, 0)
+
+
+def test_luminosity_offset_is_flagged_with_numbers() -> None:
+    frame = sun_like(10)
+    frame.loc[3, "logL"] += 0.5
+    result = catcheck.check_frame(frame, PROFILE)
+    flags = result.flags
+    assert flags["row"].tolist() == [3]
+    flag = flags.iloc[0]
+    assert flag["rule"] == "stefan-boltzmann" and flag["severity"] == "error"
+    assert flag["observed"] - flag["expected"] == pytest.approx(0.5, abs=1e-9)
+    assert flag["deviation"] > 5
+    assert "+0.50 dex" in flag["message"] and "K" in flag["message"]
+    assert flag["id"] == "S000003"
+    assert not result.passed
+
+
+def test_missing_values_are_skipped_never_flagged() -> None:
+    frame = sun_like(20)
+    frame.loc[[2, 5], "Rad"] = np.nan
+    frame.loc[7, "Teff"] = None
+    frame.loc[2, "logL"] += 3  # would fail, but radius is missing
+    result = catcheck.check_frame(frame, PROFILE)
+    sb = stats(result, "stefan-boltzmann")
+    assert (sb["checked"], sb["skipped"], sb["flagged"]) == (17, 3, 0)
+    assert stats(result, "teff-range")["skipped"] == 1
+
+
+def test_rule_without_quantities_is_reported_not_run() -> None:
+    result = catcheck.check_frame(sun_like(5), PROFILE)
+    mass = stats(result, "mass-range")
+    assert mass["status"] == "not-run: missing mass"
+    assert mass["checked"] == mass["flagged"] == 0
+
+
+def test_hard_limits_use_the_rows_own_error() -> None:
+    frame = sun_like(4)
+    frame["Age"] = [20.0, 14.0, 13.0, -1.0]  # Gyr; the profile gives no age error
+    result = catcheck.check_frame(frame, PROFILE)
+    flagged = result.flags.query("rule == 'age-range'")
+    assert flagged["row"].tolist() == [0, 1, 3]
+    assert "age of the Universe" in flagged.iloc[0]["message"]
+
+
+def test_infinite_value_is_flagged_by_its_range_rule() -> None:
+    frame = sun_like(3)
+    frame.loc[1, "Teff"] = np.inf
+    result = catcheck.check_frame(frame, PROFILE)
+    assert set(result.flags.query("rule == 'teff-range'")["row"]) == {1}
+
+
+def test_results_do_not_depend_on_batch_size() -> None:
+    frame = sun_like(3000, seed=3)
+    frame.loc[::97, "logL"] -= 0.8
+    frame.loc[::131, "Age"] = 30.0
+    reference = catcheck.check_frame(frame, PROFILE, batch_rows=100_000)
+    for batch_rows in (1000, 1001, 2999):
+        other = catcheck.check_frame(frame, PROFILE, batch_rows=batch_rows)
+        pd.testing.assert_frame_equal(reference.flags, other.flags)
+        assert reference.summary["rules"] == other.summary["rules"]
+        assert reference.summary["flagged_rows"] == other.summary["flagged_rows"]
+
+
+def test_flags_sorted_by_row_then_rule_order() -> None:
+    frame = sun_like(6)
+    frame.loc[4, "logL"] += 1
+    frame.loc[4, "Age"] = 40.0
+    frame.loc[1, "Age"] = 40.0
+    flags = catcheck.check_frame(frame, PROFILE).flags
+    assert list(zip(flags["row"], flags["rule"], strict=True)) == [
+        (1, "age-range"), (4, "stefan-boltzmann"), (4, "age-range")]
+
+
+def test_summary_counts_rows_by_worst_severity(tmp_path) -> None:
+    pack = tmp_path / "soft.toml"
+    pack.write_text('[[rule]]\nid = "age-range"\nseverity = "warning"\n')
+    frame = sun_like(5)
+    frame.loc[0, "Age"] = 40.0
+    frame.loc[1, "Age"] = 40.0
+    frame.loc[1, "logL"] += 2
+    result = catcheck.check_frame(frame, PROFILE, rules=["core", pack])
+    assert result.summary["rows_by_severity"] == {"info": 0, "warning": 1, "error": 1}
+    assert result.summary["flags_by_severity"] == {"info": 0, "warning": 2, "error": 1}
+    assert result.summary["flagged_rows"] == 2
+
+
+@pytest.mark.parametrize(
+    ("fail_on", "fraction", "passed"),
+    [("error", None, False), ("warning", None, False), ("none", None, True),
+     ("none", 0.5, True), ("none", 0.1, False)],
+)
+def test_gate(fail_on: str, fraction: float | None, passed: bool) -> None:
+    frame = sun_like(4)
+    frame.loc[0, "logL"] += 1  # one row of four: 25% flagged
+    result = catcheck.check_frame(frame, PROFILE, fail_on=fail_on,
+                                  max_flagged_fraction=fraction)
+    assert result.passed is passed
+
+
+def test_warning_gate_counts_warnings(tmp_path) -> None:
+    pack = tmp_path / "soft.toml"
+    pack.write_text('[[rule]]\nid = "stefan-boltzmann"\nseverity = "warning"\n')
+    frame = sun_like(4)
+    frame.loc[0, "logL"] += 1
+    assert catcheck.check_frame(frame, PROFILE, rules=["core", pack]).passed
+    assert not catcheck.check_frame(frame, PROFILE, rules=["core", pack],
+                                    fail_on="warning").passed
+
+
+def test_unmapped_phase_labels_are_counted() -> None:
+    frame = sun_like(6)
+    frame.loc[[0, 1], "state"] = "weird"
+    frame.loc[2, "state"] = "RGB"  # a phase code itself is accepted
+    result = catcheck.check_frame(frame, PROFILE)
+    assert result.summary["unmapped_phase_labels"] == {"weird": 2}
+
+
+def test_report_files_written_atomically(tmp_path) -> None:
+    frame = sun_like(50)
+    frame.loc[10, "logL"] += 1
+    path = write_catalogue(tmp_path, frame)
+    out = tmp_path / "report"
+    result = catcheck.check(path, tmp_path / "profile.toml", out=out)
+    assert sorted(p.name for p in out.iterdir()) == ["flags.parquet", "report.md",
+                                                      "summary.json"]
+    summary = json.loads((out / "summary.json").read_text())
+    assert summary["rows"] == 50 and summary["flagged_rows"] == 1
+    assert result.flags["row"].tolist() == [10]
+    assert "stefan-boltzmann" in (out / "report.md").read_text()
+
+
+@pytest.mark.parametrize("flags_format", ["csv", "jsonl"])
+def test_text_flag_formats_round_trip(tmp_path, flags_format: str) -> None:
+    frame = sun_like(30)
+    frame.loc[[3, 4], "logL"] += 1
+    frame.loc[4, "Age"] = 50.0
+    path = write_catalogue(tmp_path, frame)
+    parquet = catcheck.check(path, tmp_path / "profile.toml", out=tmp_path / "a").flags
+    text = catcheck.check(path, tmp_path / "profile.toml", out=tmp_path / "b",
+                          flags_format=flags_format).flags
+    assert (tmp_path / "b" / f"flags.{flags_format}").exists()
+    pd.testing.assert_frame_equal(parquet, text, check_exact=False)
+
+
+def test_output_is_deterministic(tmp_path) -> None:
+    frame = sun_like(200)
+    frame.loc[::7, "logL"] += 1
+    path = write_catalogue(tmp_path, frame)
+    for name in ("a", "b"):
+        catcheck.check(path, tmp_path / "profile.toml", out=tmp_path / name)
+    for name in ("flags.parquet", "report.md"):
+        assert (tmp_path / "a" / name).read_bytes() == (tmp_path / "b" / name).read_bytes()
+    a, b = (json.loads((tmp_path / n / "summary.json").read_text()) for n in "ab")
+    a.pop("elapsed_seconds"), b.pop("elapsed_seconds")
+    assert a == b
+
+
+def test_failed_run_keeps_previous_report(tmp_path) -> None:
+    frame = sun_like(20)
+    path = write_catalogue(tmp_path, frame)
+    out = tmp_path / "report"
+    catcheck.check(path, tmp_path / "profile.toml", out=out)
+    before = {p.name: p.read_bytes() for p in out.iterdir()}
+    with pytest.raises(catcheck.errors.ProfileError):
+        bad = tmp_path / "bad.toml"
+        bad.write_text(PROFILE_TOML.replace('column = "Rad"', 'column = "Radius"'))
+        catcheck.check(path, bad, out=out)
+    assert {p.name: p.read_bytes() for p in out.iterdir()} == before
