@@ -1,0 +1,111 @@
+"""Benchmark: catcheck against a plain pyarrow scan of the same columns.
+
+Writes demo catalogues (``catcheck demo`` data) of the requested sizes, then for each size
+times, each case in its own fresh Python process so that peak memory (RSS) is its own:
+
+* ``scan``: a plain pyarrow read of the columns the profile needs, batch by batch;
+* ``check``: ``catcheck.check`` with the given packs, writing a full report.
+
+It prints the seconds, the ratio of each case to the scan of the same size in the same
+benchmark session, and the peak RSS.  Usage::
+
+    python benchmarks/run.py --rows 2000000 10000000 [--packs core] [--data DIR]
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import resource
+import subprocess
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+
+def peak_rss_mb() -> float:
+    """This process's peak resident set size in MB (Linux reports kB)."""
+    return resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0
+
+
+def case_scan(catalogue: Path, profile: Path, batch_rows: int) -> None:
+    import pyarrow.parquet as pq
+
+    from catcheck.profile import load_profile
+
+    columns = load_profile(profile).columns
+    rows = 0
+    for batch in pq.ParquetFile(catalogue).iter_batches(batch_size=batch_rows,
+                                                        columns=columns):
+        rows += batch.num_rows
+    assert rows > 0
+
+
+def case_check(catalogue: Path, profile: Path, batch_rows: int, packs: list[str],
+               out: Path) -> None:
+    import catcheck
+
+    catcheck.check(catalogue, profile, packs, out=out, fail_on="none", batch_rows=batch_rows)
+
+
+def child(args: argparse.Namespace) -> None:
+    started = time.perf_counter()
+    if args.case == "scan":
+        case_scan(args.catalogue, args.profile, args.batch_rows)
+    else:
+        case_check(args.catalogue, args.profile, args.batch_rows, args.packs, args.out)
+    print(json.dumps({"seconds": time.perf_counter() - started, "peak_rss_mb": peak_rss_mb()}))
+
+
+def run_case(case: str, catalogue: Path, profile: Path, args: argparse.Namespace,
+             out: Path) -> dict[str, float]:
+    command = [sys.executable, __file__, "--child", case, "--catalogue", str(catalogue),
+               "--profile", str(profile), "--batch-rows", str(args.batch_rows),
+               "--out", str(out), "--packs", *args.packs]
+    done = subprocess.run(command, check=True, capture_output=True, text=True)
+    return json.loads(done.stdout.strip().splitlines()[-1])
+
+
+def main() -> None:
+    parser = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
+    parser.add_argument("--rows", type=int, nargs="+", default=[2_000_000])
+    parser.add_argument("--packs", nargs="+", default=["core"])
+    parser.add_argument("--batch-rows", type=int, default=262_144)
+    parser.add_argument("--repeat", type=int, default=2, help="best of N runs per case")
+    parser.add_argument("--data", type=Path, default=None,
+                        help="where demo catalogues are written and kept (default: temp)")
+    parser.add_argument("--child", choices=["scan", "check"], help=argparse.SUPPRESS)
+    parser.add_argument("--catalogue", type=Path, help=argparse.SUPPRESS)
+    parser.add_argument("--profile", type=Path, help=argparse.SUPPRESS)
+    parser.add_argument("--out", type=Path, help=argparse.SUPPRESS)
+    args = parser.parse_args()
+    if args.child:
+        args.case = args.child
+        child(args)
+        return
+
+    from catcheck.demo import write_demo
+
+    data = args.data or Path(tempfile.mkdtemp(prefix="catcheck-bench-"))
+    print(f"packs: {' '.join(args.packs)}; batch rows: {args.batch_rows:,}; "
+          f"best of {args.repeat}")
+    print(f"{'rows':>12} {'case':<8} {'seconds':>9} {'ratio':>7} {'peak RSS MB':>12}")
+    for rows in args.rows:
+        folder = data / f"demo-{rows}"
+        if not (folder / "catalogue.parquet").exists():
+            write_demo(folder, rows=rows, seed=1)
+        catalogue, profile = folder / "catalogue.parquet", folder / "profile.toml"
+        results = {}
+        for case in ("scan", "check"):
+            runs = [run_case(case, catalogue, profile, args, folder / "report")
+                    for _ in range(args.repeat)]
+            results[case] = min(runs, key=lambda r: r["seconds"])
+        scan = results["scan"]["seconds"]
+        for case, result in results.items():
+            print(f"{rows:>12,} {case:<8} {result['seconds']:>9.2f} "
+                  f"{result['seconds'] / scan:>6.2f}x {result['peak_rss_mb']:>12.0f}")
+
+
+if __name__ == "__main__":
+    main()

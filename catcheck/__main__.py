@@ -1,0 +1,5 @@
+"""``python -m catcheck``: the same as the ``catcheck`` command."""
+
+from catcheck.cli import main
+
+main()
