@@ -51,7 +51,7 @@ class RuleStats:
     checked: int = 0
     skipped: int = 0
     flagged: int = 0
-    assumed_errors: list[str] = field(default_factory=list)
+    assumed_errors: set[str] = field(default_factory=set)
     examples: list[dict[str, Any]] = field(default_factory=list)
 
     def as_dict(self) -> dict[str, Any]:
@@ -66,8 +66,8 @@ class RuleStats:
             "skipped": self.skipped,
             "flagged": self.flagged,
         }
-        if self.assumed_errors:
-            entry["assumed_errors"] = self.assumed_errors
+        if self.rule.check.uses_errors:
+            entry["assumed_errors"] = sorted(self.assumed_errors)
         return entry
 
 
@@ -124,13 +124,6 @@ def _prepare(rule: Rule, profile: Profile) -> RuleStats:
     missing = [q for q in rule.needs if not profile.provides(q)]
     if missing:
         stats.status = f"not-run: missing {', '.join(missing)}"
-    elif rule.check.uses_errors:
-        stats.assumed_errors = [
-            q for q in rule.needs
-            if QUANTITIES[q].numeric and q in profile.quantities
-            and profile.quantities[q].error_column is None
-            and profile.quantities[q].error_value is None
-        ]
     return stats
 
 
@@ -141,6 +134,8 @@ def _record(stats: RuleStats, stars: StarBatch, outcome: Outcome) -> pa.Table:
     checked = int(available.sum())
     stats.checked += checked
     stats.skipped += stars.size - checked
+    if stats.rule.check.uses_errors:
+        stats.assumed_errors.update(_assumed_errors(stats.rule.needs, stars, available))
     positions = np.flatnonzero(outcome.failed & available)
     stats.flagged += len(positions)
     table = flag_records(stats.rule.id, stats.rule.severity, stars.first_row, positions,
@@ -150,6 +145,19 @@ def _record(stats: RuleStats, stars: StarBatch, outcome: Outcome) -> pa.Table:
     if room > 0 and table.num_rows:
         stats.examples.extend(table.slice(0, room).to_pylist())
     return table
+
+
+def _assumed_errors(needs: Sequence[str], stars: StarBatch, available: np.ndarray
+                    ) -> list[str]:
+    """Needed quantities whose 1-sigma the catalogue lacks in some checked row."""
+    assumed = []
+    for quantity in needs:
+        if not QUANTITIES[quantity].numeric:
+            continue
+        errors = stars.errors.get(quantity)
+        if errors is None or np.isnan(errors[available]).any():
+            assumed.append(quantity)
+    return assumed
 
 
 def _merge(tables: list[pa.Table], order: dict[str, int]) -> pa.Table:

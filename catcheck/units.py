@@ -111,7 +111,6 @@ _ALIASES = {
     "dex(solMass)": "dex(Msun)",
     "erg s-1": "erg/s",
     "a": "yr",
-    "Myr ": "Myr",
 }
 
 

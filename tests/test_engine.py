@@ -194,3 +194,33 @@ def test_failed_run_keeps_previous_report(tmp_path) -> None:
         bad.write_text(PROFILE_TOML.replace('column = "Rad"', 'column = "Radius"'))
         catcheck.check(path, bad, out=out)
     assert {p.name: p.read_bytes() for p in out.iterdir()} == before
+
+
+def test_assumed_errors_reported_when_some_rows_lack_them() -> None:
+    frame = sun_like(4)
+    complete = catcheck.check_frame(frame, PROFILE)
+    assert stats(complete, "stefan-boltzmann")["assumed_errors"] == []
+    frame.loc[1, "e_logL"] = np.nan
+    partial = catcheck.check_frame(frame, PROFILE)
+    assert stats(partial, "stefan-boltzmann")["assumed_errors"] == ["luminosity"]
+
+
+def test_expression_rule_runs_end_to_end(tmp_path) -> None:
+    pack = tmp_path / "mine.toml"
+    pack.write_text("""
+[[rule]]
+id = "hot-red-giant"
+severity = "warning"
+summary = "red giants are cool"
+when = "phase in ('RGB', 'AGB')"
+require = "teff < 5800"
+message = "{phase} star at {teff:.0f} K is too hot"
+""")
+    frame = sun_like(9)
+    result = catcheck.check_frame(frame, PROFILE, rules=["core", pack])
+    giants_hot = frame.index[(frame["state"] == "giant") & (frame["Teff"] >= 5800)].tolist()
+    flags = result.flags.query("rule == 'hot-red-giant'")
+    assert flags["row"].tolist() == giants_hot and giants_hot
+    row = giants_hot[0]
+    assert flags.iloc[0]["message"] == f"RGB star at {frame.loc[row, 'Teff']:.0f} K is too hot"
+    assert flags.iloc[0]["severity"] == "warning"

@@ -1,0 +1,647 @@
+"""Invent a cluster catalogue with planted faults: the data behind ``catcheck demo``.
+
+The scenario is fictional: the *Larkspur Open Cluster Survey* (LOCS), a spectroscopic
+census of numbered open clusters ("C-017") at 0.3-3 kpc.  Each cluster is a simple stellar
+population (one age, one metallicity, one distance); its members are drawn from the
+Kroupa (2001) IMF, evolved with the relations of :mod:`catcheck.physics.populations`
+(PARSEC-based lifetimes, Eker et al. 2018 main sequence, schematic giant branches,
+Cummings et al. 2018 / Nauenberg 1972 white dwarfs) and observed through the survey's
+selection function.  True values obey Stefan-Boltzmann and g = GM/R^2 exactly; catalogue
+values add Gaussian noise with the quoted 1-sigma errors, some values are missing, and
+about 2% of the rows carry one planted fault each, listed in a truth table.
+
+Public API: :func:`write_demo`, :func:`tally_faults`, :data:`FAULT_KINDS`,
+:class:`DemoFiles`.  No printing, no command line: the CLI renders.
+
+Determinism: every random draw comes from ``numpy.random.SeedSequence(seed)`` children,
+one for the cluster table and one per chunk of ``CHUNK_ROWS`` rows, so the same
+``(rows, seed)`` always gives the same bytes, and memory stays bounded by one chunk.
+"""
+
+from __future__ import annotations
+
+import operator
+import os
+import uuid
+from collections.abc import Callable, Iterator
+from contextlib import contextmanager
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import pyarrow as pa
+import pyarrow.compute as pc
+import pyarrow.parquet as pq
+from numpy.typing import NDArray
+
+from catcheck.constants import AGE_OF_UNIVERSE, MBOL_SUN
+from catcheck.physics import populations as pop
+from catcheck.physics.populations import Stage
+from catcheck.physics.stellar import (
+    LN10,
+    log_luminosity_stefan_boltzmann,
+    log_surface_gravity,
+)
+
+FloatArray = NDArray[np.float64]
+Generator = np.random.Generator
+
+# =========================================================================================
+# The scenario
+# =========================================================================================
+
+SURVEY_NAME = "Larkspur Open Cluster Survey"
+SURVEY_PREFIX = "LOCS"
+
+#: Rows generated (and written as one Parquet row group) at a time.
+CHUNK_ROWS = 1_000_000
+#: Stars evolved per call inside a chunk (bounds the temporaries of the physics).
+_DRAW_BATCH = 250_000
+#: Mean members per cluster; cluster sizes scatter log-normally around it.
+MEAN_MEMBERS = 300
+CLUSTER_SIZE_SCATTER_DEX = 0.25
+
+#: Cluster ages log-uniform over 10 Myr - 6 Gyr (catalogued to 0.1 Myr).
+AGE_RANGE_MYR = (10.0, 6000.0)
+#: Cluster metallicity [Fe/H] ~ N(-0.1, 0.15) dex, clipped to -0.8..+0.4 (the PARSEC
+#: lifetime fit is valid for -1 <= [M/H] <= +0.25).
+FEH_MEAN, FEH_SD, FEH_CLIP = -0.1, 0.15, (-0.8, 0.4)
+#: Member [Fe/H] scatter around the cluster value (measurement plus abundance spread).
+FEH_MEMBER_SD = 0.05
+#: Clusters fill a thin disc uniformly between 0.3 and 3 kpc: p(d) ~ d.
+DISTANCE_RANGE_PC = (300.0, 3000.0)
+
+#: Selection function: members brighter than apparent bolometric magnitude 18 are
+#: observed; main-sequence and pre-main-sequence members with probability 0.4 (fibres are
+#: shared), evolved stars and white dwarfs always (the survey gives them priority).
+MBOL_LIMIT = 18.0
+COMPLETENESS: dict[Stage, float] = {
+    Stage.PMS: 0.4, Stage.MS: 0.4, Stage.SGB: 1.0, Stage.RGB: 1.0, Stage.CLUMP: 1.0,
+    Stage.CHEB: 1.0, Stage.AGB: 1.0, Stage.SUPERGIANT: 1.0, Stage.WD: 1.0,
+    Stage.REMNANT: 0.0,
+}
+IMF_MASS_RANGE = (0.1, 20.0)
+
+#: Quoted 1-sigma errors, drawn per star uniformly within these ranges.  Relative for Teff,
+#: radius and mass; in dex for log L and log g; in mas for the parallax.
+TEFF_REL_ERR = (0.015, 0.020)
+LOG_LUM_ERR = (0.03, 0.05)
+RADIUS_REL_ERR = (0.04, 0.05)
+MASS_REL_ERR = (0.05, 0.08)
+LOG_G_ERR = (0.08, 0.12)
+PARALLAX_ERR = (0.02, 0.05)
+#: Noise is Gaussian with the quoted sigma, redrawn for the rare star (~1 in 70,000)
+#: whose Stefan-Boltzmann or surface-gravity residual would exceed this many combined
+#: sigma: the demo's false positives then measure the rules, not the noise tail.
+NOISE_TRUNCATION_SIGMA = 4.5
+
+#: Fraction of rows with planted faults.
+FAULT_FRACTION = 0.02
+#: Fraction of rows that carry an MK spectral type.
+SPECTRAL_TYPE_FRACTION = 0.4
+
+
+@dataclass(frozen=True)
+class SurveyColumns:
+    """Column names of the LOCS catalogue (the survey's own style)."""
+
+    id: str = "locs_id"
+    cluster: str = "cluster"
+    teff: str = "teff"
+    teff_err: str = "teff_err"
+    log_lum: str = "log_lum"
+    log_lum_err: str = "log_lum_err"
+    radius: str = "radius"
+    radius_err: str = "radius_err"
+    mass: str = "mass"
+    mass_err: str = "mass_err"
+    log_g: str = "log_g"
+    log_g_err: str = "log_g_err"
+    age: str = "cluster_age_myr"
+    feh: str = "fe_h"
+    parallax: str = "parallax"
+    parallax_err: str = "parallax_err"
+    evol_class: str = "evol_class"
+    sp_type: str = "sp_type"
+
+
+COLUMNS = SurveyColumns()
+_C = COLUMNS
+
+#: Missing-value rate per column; a value and its error go missing together.
+MISSING_FRACTION: dict[str, float] = {
+    _C.teff: 0.01, _C.log_lum: 0.02, _C.radius: 0.05, _C.mass: 0.03, _C.log_g: 0.02,
+    _C.feh: 0.04, _C.parallax: 0.015, _C.evol_class: 0.01,
+}
+_ERROR_OF = {
+    _C.teff: _C.teff_err, _C.log_lum: _C.log_lum_err, _C.radius: _C.radius_err,
+    _C.mass: _C.mass_err, _C.log_g: _C.log_g_err, _C.parallax: _C.parallax_err,
+}
+
+#: The survey's evolutionary-state vocabulary, and the phase code each label means.
+LABELS: dict[Stage, str] = {
+    Stage.PMS: "pre-ms", Stage.MS: "dwarf", Stage.SGB: "subgiant", Stage.RGB: "giant",
+    Stage.CLUMP: "clump", Stage.CHEB: "core-he giant", Stage.AGB: "agb",
+    Stage.SUPERGIANT: "supergiant", Stage.WD: "white dwarf",
+}
+PHASE_OF_LABEL: dict[str, str] = {
+    "pre-ms": "PMS", "dwarf": "MS", "subgiant": "SGB", "giant": "RGB", "clump": "RC",
+    "core-he giant": "CHEB", "agb": "AGB", "supergiant": "RSG", "white dwarf": "WD",
+}
+_LUMINOSITY_CLASS: dict[Stage, str] = {
+    Stage.PMS: "V", Stage.MS: "V", Stage.SGB: "IV", Stage.RGB: "III", Stage.CLUMP: "III",
+    Stage.CHEB: "III", Stage.AGB: "III", Stage.SUPERGIANT: "Ib", Stage.WD: "D",
+}
+
+_FLOAT_COLUMNS = (
+    _C.teff, _C.teff_err, _C.log_lum, _C.log_lum_err, _C.radius, _C.radius_err, _C.mass,
+    _C.mass_err, _C.log_g, _C.log_g_err, _C.age, _C.feh, _C.parallax, _C.parallax_err,
+)
+SCHEMA = pa.schema(
+    [pa.field(_C.id, pa.string(), nullable=False), pa.field(_C.cluster, pa.string())]
+    + [pa.field(name, pa.float64()) for name in _FLOAT_COLUMNS]
+    + [pa.field(_C.evol_class, pa.string()), pa.field(_C.sp_type, pa.string())]
+)
+TRUTH_SCHEMA = pa.schema(
+    [pa.field("row", pa.int64()), pa.field("id", pa.string()), pa.field("fault", pa.string())]
+)
+
+
+# =========================================================================================
+# Planted faults: one entry in _FAULTS plus one small function per kind
+# =========================================================================================
+
+Columns = dict[str, FloatArray]
+
+
+def _plant_luminosity_offset(cols: Columns, idx: NDArray[np.intp], rng: Generator) -> None:
+    # the shift takes the sign of the row's noise residual, so noise never hides part of it
+    residual = cols[_C.log_lum][idx] - log_luminosity_stefan_boltzmann(
+        cols[_C.radius][idx], cols[_C.teff][idx])
+    sign = np.where(residual >= 0.0, 1.0, -1.0)
+    cols[_C.log_lum][idx] += sign * rng.uniform(0.5, 1.0, idx.size)
+
+
+def _plant_radius_inflated(cols: Columns, idx: NDArray[np.intp], rng: Generator) -> None:
+    cols[_C.radius][idx] *= 3.0
+    cols[_C.radius_err][idx] *= 3.0
+
+
+def _plant_impossible_teff(cols: Columns, idx: NDArray[np.intp], rng: Generator) -> None:
+    hot = rng.random(idx.size) < 0.5
+    new = np.where(hot, 10.0 ** rng.uniform(6.0, 7.0, idx.size),
+                   rng.uniform(1.0, 100.0, idx.size))
+    cols[_C.teff_err][idx] *= new / cols[_C.teff][idx]
+    cols[_C.teff][idx] = new
+
+
+def _plant_age_beyond_universe(cols: Columns, idx: NDArray[np.intp], rng: Generator) -> None:
+    cols[_C.age][idx] = np.round(rng.uniform(20_000.0, 40_000.0, idx.size), 1)
+
+
+def _plant_impossible_mass(cols: Columns, idx: NDArray[np.intp], rng: Generator) -> None:
+    heavy = rng.random(idx.size) < 0.5
+    new = np.where(heavy, rng.uniform(500.0, 5000.0, idx.size), -cols[_C.mass][idx])
+    cols[_C.mass_err][idx] *= np.abs(new / cols[_C.mass][idx])
+    cols[_C.mass][idx] = new
+
+
+@dataclass(frozen=True)
+class _Fault:
+    description: str
+    needs: tuple[str, ...]  # columns that must hold a value for the fault to be plantable
+    plant: Callable[[Columns, NDArray[np.intp], Generator], None]
+
+
+_FAULTS: dict[str, _Fault] = {
+    "luminosity_offset": _Fault(
+        "log L shifted by 0.5-1.0 dex up or down, radius and Teff untouched",
+        (_C.log_lum, _C.radius, _C.teff), _plant_luminosity_offset),
+    "radius_inflated": _Fault(
+        "radius (and its error) x3, luminosity and Teff untouched",
+        (_C.radius, _C.log_lum, _C.teff), _plant_radius_inflated),
+    "impossible_teff": _Fault(
+        "Teff above 1,000,000 K or below 100 K (error scaled with the value)",
+        (_C.teff,), _plant_impossible_teff),
+    "age_beyond_universe": _Fault(
+        f"age 20-40 Gyr, older than the Universe ({AGE_OF_UNIVERSE.value / 1e9:.2f} Gyr)",
+        (_C.age,), _plant_age_beyond_universe),
+    "impossible_mass": _Fault(
+        "mass above 500 Msun or negative",
+        (_C.mass,), _plant_impossible_mass),
+}
+
+#: Fault kind -> one-line description, in planting order.
+FAULT_KINDS: dict[str, str] = {name: fault.description for name, fault in _FAULTS.items()}
+CLEAN_ROWS = "(clean rows)"
+
+
+# =========================================================================================
+# Public API
+# =========================================================================================
+
+
+@dataclass(frozen=True)
+class DemoFiles:
+    """Paths written by :func:`write_demo`."""
+
+    catalogue: Path
+    profile: Path
+    truth: Path
+
+
+def write_demo(
+    out_dir: Path, rows: int = 20_000, seed: int = 1, *, chunk_rows: int = CHUNK_ROWS
+) -> DemoFiles:
+    """Write an invented LOCS catalogue, its profile and its truth table into ``out_dir``.
+
+    Writes ``catalogue.parquet`` (one row group per chunk of ``chunk_rows`` rows),
+    ``profile.toml`` (DESIGN.md format) and ``truth.parquet`` (columns row int64, id string,
+    fault string: one row per planted fault, sorted by row).  Each file is written to a
+    temporary file in ``out_dir`` and moved into place with :func:`os.replace`.  The same
+    ``rows``, ``seed`` and ``chunk_rows`` give the same bytes.
+    """
+    rows, seed, chunk_rows = (_integer(v, name) for v, name in
+                              ((rows, "rows"), (seed, "seed"), (chunk_rows, "chunk_rows")))
+    if rows < 1 or chunk_rows < 1:
+        raise ValueError(f"rows and chunk_rows must be positive; got {rows}, {chunk_rows}")
+    if seed < 0:
+        raise ValueError(f"seed must be a non-negative integer; got {seed}")
+    out_dir = Path(out_dir)
+    out_dir.mkdir(parents=True, exist_ok=True)
+    files = DemoFiles(out_dir / "catalogue.parquet", out_dir / "profile.toml",
+                      out_dir / "truth.parquet")
+
+    clusters = _make_clusters(rows, seed)
+    truths: list[pa.Table] = []
+    with _atomic_path(files.catalogue) as tmp, pq.ParquetWriter(tmp, SCHEMA) as writer:
+        for index, start in enumerate(range(0, rows, chunk_rows)):
+            stop = min(rows, start + chunk_rows)
+            table, truth = _make_chunk(clusters, start, stop, seed, index)
+            writer.write_table(table, row_group_size=chunk_rows)
+            truths.append(truth)
+            del table
+    with _atomic_path(files.truth) as tmp:
+        pq.write_table(pa.concat_tables(truths), tmp)
+    with _atomic_path(files.profile) as tmp:
+        Path(tmp).write_text(profile_toml(), encoding="utf-8")
+    return files
+
+
+def tally_faults(truth: pd.DataFrame, flags: pd.DataFrame, rows: int) -> pd.DataFrame:
+    """Per fault kind: how many planted faults the check found, and clean rows it flagged.
+
+    ``truth`` has columns row, id, fault (as written by :func:`write_demo`); ``flags`` is in
+    the DESIGN.md flags schema (row, id, rule, severity, ...); ``rows`` is the catalogue's
+    row count.  A row counts as flagged when at least one flag of severity ``error`` or
+    ``warning`` names it (matched by row).  Returns one row per fault kind (the kinds of
+    :data:`FAULT_KINDS` in order, then any other kind found in ``truth``) with columns
+    fault, planted, found, missed and rules (comma-separated, sorted ids of the rules that
+    flagged those rows), and a final row ``fault = "(clean rows)"`` where planted is the
+    number of clean rows, found the clean rows flagged (false positives) and missed the
+    clean rows left unflagged.
+    """
+    serious = flags["severity"].isin(["error", "warning"])
+    flagged = flags.loc[serious, ["row", "rule"]].drop_duplicates()
+    fault_of_row = pd.Series(truth["fault"].to_numpy(), index=truth["row"].to_numpy())
+    flagged = flagged.assign(fault=flagged["row"].map(fault_of_row).fillna(CLEAN_ROWS))
+    found = flagged.groupby("fault")["row"].nunique()
+    rules = flagged.groupby("fault")["rule"].agg(lambda s: ",".join(sorted(set(s))))
+    planted = truth.groupby("fault")["row"].nunique()
+    planted[CLEAN_ROWS] = int(rows) - int(truth["row"].nunique())
+    kinds = list(FAULT_KINDS) + sorted(set(truth["fault"]) - set(FAULT_KINDS)) + [CLEAN_ROWS]
+    table = pd.DataFrame({"fault": kinds})
+    table["planted"] = table["fault"].map(planted).fillna(0).astype("int64")
+    table["found"] = table["fault"].map(found).fillna(0).astype("int64")
+    table["missed"] = table["planted"] - table["found"]
+    table["rules"] = table["fault"].map(rules).fillna("").astype(str)
+    return table
+
+
+def run_demo(out_dir: Path, rows: int = 20_000, seed: int = 1) -> str:
+    """Write the demo catalogue, check it with the default packs, and tally the faults.
+
+    The report goes to ``out_dir / "report"``.  Returns the text to show: the console
+    summary of the check, then per fault kind how many planted faults were found, and how
+    many clean rows were flagged.
+    """
+    from catcheck.api import check
+    from catcheck.report import console_summary
+
+    files = write_demo(Path(out_dir), rows=rows, seed=seed)
+    report = Path(out_dir) / "report"
+    result = check(files.catalogue, files.profile, out=report)
+    tally = tally_faults(pd.read_parquet(files.truth), result.flags, result.summary["rows"])
+    lines = [f"{SURVEY_NAME}: {rows:,} invented stars in {out_dir}/catalogue.parquet "
+             f"(profile {files.profile.name}, planted faults in {files.truth.name})", "",
+             console_summary(result.summary), "", "Planted faults found by the check:"]
+    width = max(len(k) for k in tally["fault"])
+    lines.append(f"  {'fault':<{width}} {'planted':>9} {'found':>9} {'missed':>8}  rules")
+    for entry in tally.iloc[:-1].itertuples():
+        lines.append(f"  {entry.fault:<{width}} {entry.planted:>9,} {entry.found:>9,} "
+                     f"{entry.missed:>8,}  {entry.rules}")
+    clean = tally.iloc[-1]
+    lines += [
+        f"  clean rows flagged: {clean.found:,} of {clean.planted:,}",
+        "",
+        f"Report: {report}/ (flags.parquet, summary.json, report.md). The demo exits 0: "
+        "its verdict is expected to fail, because faults were planted.",
+        "Next: catcheck explain stefan-boltzmann",
+    ]
+    return "\n".join(lines)
+
+
+def profile_toml() -> str:
+    """The LOCS profile (DESIGN.md format) mapping the catalogue's columns."""
+    c = COLUMNS
+    quantities = [
+        ("teff", c.teff, "K", c.teff_err),
+        ("luminosity", c.log_lum, "dex(Lsun)", c.log_lum_err),
+        ("radius", c.radius, "Rsun", c.radius_err),
+        ("mass", c.mass, "Msun", c.mass_err),
+        ("logg", c.log_g, "dex(cm/s2)", c.log_g_err),
+        ("age", c.age, "Myr", None),
+        ("feh", c.feh, "dex", None),
+        ("parallax", c.parallax, "mas", c.parallax_err),
+    ]
+    lines = [
+        f"# {SURVEY_NAME} ({SURVEY_PREFIX}): invented by `catcheck demo`; no real survey.",
+        "# Members of numbered open clusters; ages are the cluster's, repeated per member.",
+        f'id = "{c.id}"',
+        f'group = "{c.cluster}"',
+        "",
+    ]
+    for quantity, column, unit, error in quantities:
+        lines += [f"[quantities.{quantity}]", f'column = "{column}"', f'unit = "{unit}"']
+        if error:
+            lines.append(f'error = "{error}"')
+        lines.append("")
+    lines += ["[quantities.phase]", f'column = "{c.evol_class}"', ""]
+    lines += ["[quantities.spectral_type]", f'column = "{c.sp_type}"', ""]
+    lines.append("[phases]")
+    lines += [f'"{label}" = "{code}"' for label, code in PHASE_OF_LABEL.items()]
+    return "\n".join(lines) + "\n"
+
+
+# =========================================================================================
+# Clusters
+# =========================================================================================
+
+
+@dataclass(frozen=True)
+class _Clusters:
+    names: pa.Array  # "C-017"
+    numbers: NDArray[np.int64]
+    start: NDArray[np.int64]  # first row of each cluster
+    stop: NDArray[np.int64]  # one past the last row
+    age_myr: FloatArray
+    feh: FloatArray
+    distance_pc: FloatArray
+    number_width: int
+    member_width: int
+
+
+def _make_clusters(rows: int, seed: int) -> _Clusters:
+    """The cluster table: sizes summing to ``rows``, ages, metallicities, distances."""
+    rng = np.random.default_rng(np.random.SeedSequence(seed, spawn_key=(0,)))
+    k = max(1, round(rows / MEAN_MEMBERS))
+    weights = 10.0 ** rng.normal(0.0, CLUSTER_SIZE_SCATTER_DEX, k)
+    sizes = rng.multinomial(rows, weights / weights.sum()).astype(np.int64)
+    stop = np.cumsum(sizes)
+    # survey numbers are sparse, as if some catalogued clusters were never observed
+    numbers = np.sort(rng.choice(np.arange(1, 3 * k + 1), size=k, replace=False))
+    width = max(3, len(str(3 * k)))
+    lo, hi = np.log10(AGE_RANGE_MYR)
+    age = np.round(10.0 ** rng.uniform(lo, hi, k), 1)
+    feh = np.clip(rng.normal(FEH_MEAN, FEH_SD, k), *FEH_CLIP)
+    d0, d1 = DISTANCE_RANGE_PC
+    distance = np.sqrt(rng.uniform(d0**2, d1**2, k))
+    names = pc.binary_join_element_wise(
+        "C", pc.utf8_lpad(pc.cast(pa.array(numbers), pa.string()), width=width, padding="0"),
+        "-")
+    return _Clusters(names, numbers, stop - sizes, stop, age, feh, distance, width,
+                     max(5, len(str(int(sizes.max())))))
+
+
+# =========================================================================================
+# Members
+# =========================================================================================
+
+
+def _mass_floor(distance_pc: FloatArray) -> FloatArray:
+    """Lowest initial mass whose zero-age main-sequence star is brighter than MBOL_LIMIT.
+
+    Inverts the Eker et al. (2018) MLR on a grid; older dwarfs are brighter, so every
+    main-sequence or pre-main-sequence star above the floor passes the magnitude limit.
+    """
+    log_l_min = -0.4 * (MBOL_LIMIT - 5.0 * np.log10(distance_pc / 10.0) - MBOL_SUN.value)
+    grid = np.linspace(np.log10(IMF_MASS_RANGE[0]), np.log10(IMF_MASS_RANGE[1]), 2001)
+    log_l = pop.eker2018_log_luminosity(10.0**grid)
+    return np.clip(10.0 ** np.interp(log_l_min, log_l, grid), *IMF_MASS_RANGE)
+
+
+def _draw_members(
+    rng: Generator, age_yr: FloatArray, feh: FloatArray, distance_pc: FloatArray
+) -> tuple[NDArray[np.int8], pop.StarProperties]:
+    """Members that pass the survey's selection function, one per row.
+
+    Masses come from the Kroupa IMF above the row's magnitude-limit floor (an exact
+    truncation, through the CDF); stars the survey would not observe (white dwarfs fainter
+    than the limit, neutron stars and black holes, fibre losses) are redrawn.
+    """
+    n = age_yr.size
+    u_floor = pop.kroupa_imf_cdf(_mass_floor(distance_pc), *IMF_MASS_RANGE)
+    stage = np.empty(n, dtype=np.int8)
+    props = [np.empty(n) for _ in range(4)]
+    completeness = np.array([COMPLETENESS[s] for s in Stage])
+    todo = np.arange(n)
+    for _ in range(200):
+        if todo.size == 0:
+            break
+        rejected = []
+        for part in np.array_split(todo, -(-todo.size // _DRAW_BATCH)):
+            u = u_floor[part] + rng.random(part.size) * (1.0 - u_floor[part])
+            mass = pop.kroupa_imf_inverse_cdf(u, *IMF_MASS_RANGE)
+            st, p = pop.stellar_properties(mass, age_yr[part], feh[part],
+                                           rng.random(part.size), rng.random(part.size))
+            with np.errstate(invalid="ignore"):
+                mbol = MBOL_SUN.value - 2.5 * p.log_luminosity + 5.0 * np.log10(
+                    distance_pc[part] / 10.0)
+                keep = (rng.random(part.size) < completeness[st]) & (mbol <= MBOL_LIMIT)
+            done = part[keep]
+            stage[done] = st[keep]
+            for dest, src in zip(props, p, strict=True):
+                dest[done] = src[keep]
+            rejected.append(part[~keep])
+        todo = np.concatenate(rejected)
+    if todo.size:  # pragma: no cover - needs ~1e-60 luck
+        raise RuntimeError("selection loop did not converge")
+    return stage, pop.StarProperties(*props)
+
+
+def _noise(
+    rng: Generator,
+    true: dict[str, FloatArray],
+    err: dict[str, FloatArray],
+) -> dict[str, FloatArray]:
+    """Observed values: true + N(0, quoted sigma), truncated jointly (NOISE_TRUNCATION_SIGMA)."""
+    n = true[_C.teff].size
+    obs = {k: true[k] + err[k] * rng.standard_normal(n) for k in true}
+    todo = np.arange(n)
+    for _ in range(100):
+        z_sb, z_g = _residual_sigmas(obs, err, todo)
+        bad = (z_sb > NOISE_TRUNCATION_SIGMA) | (z_g > NOISE_TRUNCATION_SIGMA)
+        todo = todo[bad]
+        if todo.size == 0:
+            break
+        for k in obs:
+            obs[k][todo] = true[k][todo] + err[k][todo] * rng.standard_normal(todo.size)
+    return obs
+
+
+def _residual_sigmas(
+    obs: dict[str, FloatArray], err: dict[str, FloatArray], idx: NDArray[np.intp]
+) -> tuple[FloatArray, FloatArray]:
+    """|Stefan-Boltzmann| and |surface-gravity| residuals in combined sigma, rows ``idx``."""
+    t, st = obs[_C.teff][idx], err[_C.teff][idx]
+    r, sr = obs[_C.radius][idx], err[_C.radius][idx]
+    m, sm = obs[_C.mass][idx], err[_C.mass][idx]
+    with np.errstate(divide="ignore", invalid="ignore"):
+        d_sb = obs[_C.log_lum][idx] - log_luminosity_stefan_boltzmann(r, t)
+        s_sb = np.hypot(err[_C.log_lum][idx],
+                        np.hypot(2.0 * sr / (r * LN10), 4.0 * st / (t * LN10)))
+        d_g = obs[_C.log_g][idx] - log_surface_gravity(m, r)
+        s_g = np.hypot(err[_C.log_g][idx], np.hypot(sm / (m * LN10), 2.0 * sr / (r * LN10)))
+        return np.abs(d_sb) / s_sb, np.abs(d_g) / s_g
+
+
+def _make_chunk(
+    clusters: _Clusters, start: int, stop: int, seed: int, index: int
+) -> tuple[pa.Table, pa.Table]:
+    """Rows [start, stop) of the catalogue, and their truth table."""
+    rng = np.random.default_rng(np.random.SeedSequence(seed, spawn_key=(1, index)))
+    n = stop - start
+    row = np.arange(start, stop, dtype=np.int64)
+    ci = np.searchsorted(clusters.stop, row, side="right")
+    member = row - clusters.start[ci] + 1
+    age_myr = clusters.age_myr[ci]
+    feh_cluster = clusters.feh[ci]
+    distance = clusters.distance_pc[ci]
+
+    stage, star = _draw_members(rng, age_myr * 1e6, feh_cluster, distance)
+    true = {
+        _C.teff: star.teff,
+        _C.log_lum: star.log_luminosity,
+        _C.radius: star.radius,
+        _C.mass: star.mass,
+        _C.log_g: log_surface_gravity(star.mass, star.radius),
+        _C.parallax: 1000.0 / distance,
+        _C.feh: feh_cluster,
+    }
+    err = {
+        _C.teff: star.teff * rng.uniform(*TEFF_REL_ERR, n),
+        _C.log_lum: rng.uniform(*LOG_LUM_ERR, n),
+        _C.radius: star.radius * rng.uniform(*RADIUS_REL_ERR, n),
+        _C.mass: star.mass * rng.uniform(*MASS_REL_ERR, n),
+        _C.log_g: rng.uniform(*LOG_G_ERR, n),
+        _C.parallax: rng.uniform(*PARALLAX_ERR, n),
+        _C.feh: np.full(n, FEH_MEMBER_SD),
+    }
+    cols: Columns = _noise(rng, true, err)
+    for name, error_name in _ERROR_OF.items():
+        cols[error_name] = err[name]
+    cols[_C.age] = age_myr.copy()
+
+    missing = {name: rng.random(n) < rate for name, rate in MISSING_FRACTION.items()}
+    for name, gone in missing.items():
+        if name in cols:
+            cols[name][gone] = np.nan
+            if name in _ERROR_OF:
+                cols[_ERROR_OF[name]][gone] = np.nan
+
+    ids = pc.binary_join_element_wise(
+        f"{SURVEY_PREFIX}-",
+        _padded(clusters.numbers[ci], clusters.number_width), "-",
+        _padded(member, clusters.member_width), "")
+    truth = _plant_faults(rng, cols, row, ids)
+
+    labels = pa.array([LABELS.get(s, "") for s in Stage])
+    evol = pa.DictionaryArray.from_arrays(
+        pa.array(stage.astype(np.int32), mask=missing[_C.evol_class]), labels
+    ).dictionary_decode()
+    sp_type = _spectral_types(rng, stage, star.teff)
+    cluster_names = pa.DictionaryArray.from_arrays(
+        pa.array(ci.astype(np.int32)), clusters.names).dictionary_decode()
+
+    arrays = [ids, cluster_names] + [pa.array(cols[name]) for name in _FLOAT_COLUMNS]
+    arrays += [evol, sp_type]
+    return pa.Table.from_arrays(arrays, schema=SCHEMA), truth
+
+
+def _padded(values: NDArray[np.int64], width: int) -> pa.Array:
+    return pc.utf8_lpad(pc.cast(pa.array(values), pa.string()), width=width, padding="0")
+
+
+def _spectral_types(rng: Generator, stage: NDArray[np.int8], teff: FloatArray) -> pa.Array:
+    """MK types from the true Teff and stage, for SPECTRAL_TYPE_FRACTION of the rows."""
+    has = rng.random(stage.size) < SPECTRAL_TYPE_FRACTION
+    out = np.full(stage.size, None, dtype=object)
+    lclass = np.array([_LUMINOSITY_CLASS.get(s, "V") for s in Stage], dtype=object)[stage[has]]
+    out[has] = pop.mk_spectral_type(teff[has], lclass)
+    return pa.array(out, type=pa.string())
+
+
+def _plant_faults(
+    rng: Generator, cols: Columns, row: NDArray[np.int64], ids: pa.Array
+) -> pa.Table:
+    """Plant ~FAULT_FRACTION faults, at most one per row, spread evenly over the kinds."""
+    n = row.size
+    n_faults = rng.binomial(n, FAULT_FRACTION)
+    counts = rng.multinomial(n_faults, np.full(len(_FAULTS), 1.0 / len(_FAULTS)))
+    taken = np.zeros(n, dtype=bool)
+    picked: list[NDArray[np.intp]] = []
+    kinds: list[str] = []
+    for (kind, fault), count in zip(_FAULTS.items(), counts, strict=True):
+        ok = ~taken
+        for column in fault.needs:
+            ok &= ~np.isnan(cols[column])
+        candidates = np.flatnonzero(ok)
+        idx = np.sort(rng.choice(candidates, size=min(count, candidates.size), replace=False))
+        fault.plant(cols, idx, rng)
+        taken[idx] = True
+        picked.append(idx)
+        kinds += [kind] * idx.size
+    idx = np.concatenate(picked)
+    order = np.argsort(idx, kind="stable")
+    idx = idx[order]
+    return pa.Table.from_arrays(
+        [pa.array(row[idx]), ids.take(pa.array(idx)),
+         pa.array(np.array(kinds, dtype=object)[order], type=pa.string())],
+        schema=TRUTH_SCHEMA,
+    )
+
+
+def _integer(value: object, name: str) -> int:
+    if isinstance(value, bool):
+        raise ValueError(f"{name} must be an integer; got {value!r}")
+    try:
+        return operator.index(value)  # type: ignore[arg-type]
+    except TypeError:
+        raise ValueError(f"{name} must be an integer; got {value!r}") from None
+
+
+@contextmanager
+def _atomic_path(final: Path) -> Iterator[str]:
+    """A fresh temporary path beside ``final``, moved onto it with os.replace on success.
+
+    The writer creates the file itself (so it gets the usual permissions); on any error
+    the temporary file is removed and ``final`` is left as it was.
+    """
+    tmp = final.parent / f".{final.name}.{os.getpid()}.{uuid.uuid4().hex}.tmp"
+    try:
+        yield str(tmp)
+        os.replace(tmp, final)
+    except BaseException:
+        tmp.unlink(missing_ok=True)
+        raise

@@ -1,0 +1,650 @@
+"""Stellar populations: pure array functions that invent physically self-consistent stars.
+
+Used by ``catcheck demo`` to build a catalogue whose clean rows obey the physics the rules
+check.  Every function is a pure function of numpy arrays (random draws are passed in as
+uniform deviates, never drawn here), documents its units and cites its source.  Where a
+coefficient could not be verified against the paper it is marked *from memory*; where a
+relation is a schematic choice of ours (no published fit) it says so.
+
+Units: mass in Msun, luminosity as log10 L/Lsun, radius in Rsun, Teff in K, ages in yr,
+metallicity [M/H] ~ [Fe/H] in dex.  Solar units are the IAU 2015 nominal values; the
+Stefan-Boltzmann law and surface gravity come from :mod:`catcheck.physics.stellar`.
+"""
+
+from __future__ import annotations
+
+from enum import IntEnum
+from typing import NamedTuple
+
+import numpy as np
+from numpy.typing import ArrayLike, NDArray
+
+from catcheck.constants import TEFF_SUN
+from catcheck.physics.stellar import radius_stefan_boltzmann
+
+FloatArray = NDArray[np.float64]
+
+
+# =========================================================================================
+# Initial mass function
+# =========================================================================================
+
+#: Kroupa (2001, MNRAS 322, 231, eq. 2) multi-part power law xi(m) ~ m^-alpha:
+#: segment lower edges in Msun and the exponents alpha_0 = 0.3 +- 0.7 (0.01-0.08 Msun),
+#: alpha_1 = 1.3 +- 0.5 (0.08-0.5 Msun), alpha_2 = 2.3 +- 0.3 (above 0.5 Msun).
+KROUPA_2001_EDGES: tuple[float, ...] = (0.01, 0.08, 0.5)
+KROUPA_2001_ALPHAS: tuple[float, ...] = (0.3, 1.3, 2.3)
+
+
+def _power_law_segments(
+    edges: tuple[float, ...], alphas: tuple[float, ...], m_min: float, m_max: float
+) -> tuple[list[tuple[float, float, float]], FloatArray]:
+    """Segments (lo, hi, alpha) of a continuous broken power law within [m_min, m_max],
+    and the cumulative probability at each segment's lower edge (plus 1 at the end)."""
+    if not 0.0 < m_min < m_max:
+        raise ValueError(f"need 0 < m_min < m_max; got {m_min}, {m_max}")
+    if len(edges) != len(alphas) or m_min < edges[0]:
+        raise ValueError(f"need one alpha per edge and m_min >= {edges[0]}")
+    bounds = (*edges[1:], np.inf)
+    coeff = 1.0
+    segments: list[tuple[float, float, float]] = []
+    weights: list[float] = []
+    for i, (edge, upper, alpha) in enumerate(zip(edges, bounds, alphas, strict=True)):
+        if i > 0:  # continuity of dN/dm at `edge`: k_{i-1} m^-a_{i-1} = k_i m^-a_i
+            coeff *= edge ** (alpha - alphas[i - 1])
+        lo, hi = max(edge, m_min), min(upper, m_max)
+        if hi <= lo:
+            continue
+        if alpha == 1.0:
+            weights.append(coeff * np.log(hi / lo))
+        else:
+            weights.append(coeff * (hi ** (1.0 - alpha) - lo ** (1.0 - alpha)) / (1.0 - alpha))
+        segments.append((lo, hi, alpha))
+    w = np.array(weights)
+    return segments, np.concatenate(([0.0], np.cumsum(w))) / w.sum()
+
+
+def broken_power_law_inverse_cdf(
+    u: ArrayLike,
+    edges: tuple[float, ...],
+    alphas: tuple[float, ...],
+    m_min: float,
+    m_max: float,
+) -> FloatArray:
+    """Inverse CDF of a continuous broken power law dN/dm ~ m^-alpha_i, truncated to [m_min, m_max].
+
+    ``edges[i]`` is the lower edge of segment i (the last segment runs to infinity) and
+    ``alphas[i]`` its exponent; the coefficients are chosen so that dN/dm is continuous at
+    each edge, as in Kroupa (2001).  ``u`` are uniform deviates in [0, 1]; the result has
+    the same shape.  Exact inverse-transform sampling, segment by segment.
+    """
+    u = np.asarray(u, dtype=float)
+    segments, cum = _power_law_segments(edges, alphas, m_min, m_max)
+    which = np.clip(np.searchsorted(cum, u, side="right") - 1, 0, len(segments) - 1)
+    out = np.empty_like(u)
+    for j, (lo, hi, alpha) in enumerate(segments):
+        sel = which == j
+        v = (u[sel] - cum[j]) / (cum[j + 1] - cum[j])
+        if alpha == 1.0:
+            out[sel] = lo * (hi / lo) ** v
+        else:
+            p = 1.0 - alpha
+            out[sel] = (lo**p + v * (hi**p - lo**p)) ** (1.0 / p)
+    return np.clip(out, m_min, m_max)
+
+
+def broken_power_law_cdf(
+    mass: ArrayLike,
+    edges: tuple[float, ...],
+    alphas: tuple[float, ...],
+    m_min: float,
+    m_max: float,
+) -> FloatArray:
+    """CDF of the same truncated broken power law: P(m' <= mass), 0 below m_min, 1 above m_max."""
+    m = np.clip(np.asarray(mass, dtype=float), m_min, m_max)
+    segments, cum = _power_law_segments(edges, alphas, m_min, m_max)
+    out = np.zeros_like(m)
+    for j, (lo, hi, alpha) in enumerate(segments):
+        sel = (m >= lo) & (m <= hi)
+        x = m[sel]
+        if alpha == 1.0:
+            v = np.log(x / lo) / np.log(hi / lo)
+        else:
+            p = 1.0 - alpha
+            v = (x**p - lo**p) / (hi**p - lo**p)
+        out[sel] = cum[j] + v * (cum[j + 1] - cum[j])
+    return out
+
+
+def kroupa_imf_inverse_cdf(u: ArrayLike, m_min: float = 0.1, m_max: float = 20.0) -> FloatArray:
+    """Initial masses (Msun) from uniform deviates ``u`` via the Kroupa (2001) IMF.
+
+    Kroupa P., 2001, MNRAS 322, 231, eq. (2): alpha = 1.3 for 0.08-0.5 Msun and 2.3 above
+    0.5 Msun (0.3 below 0.08).  The default range 0.1-20 Msun keeps to hydrogen-burning
+    stars and to the mass range of the Eker et al. (2018) relations used below.
+    """
+    return broken_power_law_inverse_cdf(u, KROUPA_2001_EDGES, KROUPA_2001_ALPHAS, m_min, m_max)
+
+
+def kroupa_imf_cdf(mass: ArrayLike, m_min: float = 0.1, m_max: float = 20.0) -> FloatArray:
+    """Cumulative fraction of Kroupa (2001) IMF stars in [m_min, m_max] below ``mass`` (Msun).
+
+    The inverse of :func:`kroupa_imf_inverse_cdf`; used to truncate the IMF per star (for
+    instance at a survey's magnitude limit) by drawing u from [cdf(floor), 1).
+    """
+    return broken_power_law_cdf(mass, KROUPA_2001_EDGES, KROUPA_2001_ALPHAS, m_min, m_max)
+
+
+# =========================================================================================
+# Lifetimes (PHYSICS.md section 4, computed from PARSEC v1.2S)
+# =========================================================================================
+
+
+def log_main_sequence_lifetime(mass: ArrayLike, feh: ArrayLike) -> FloatArray:
+    """log10 of the main-sequence lifetime in yr, from initial mass (Msun) and [M/H] (dex).
+
+    ``log t = 9.983 - 3.377x + 0.780x^2 + 0.023x^3 + [M/H](0.234 - 0.307x + 0.086x^2)``,
+    x = log10 M: a fit (0.7-120 Msun, -1 <= [M/H] <= +0.25; rms 0.026 dex, max 0.12 dex)
+    to the ages at which stars leave the main sequence in the PARSEC v1.2S isochrones
+    (Bressan et al. 2012, MNRAS 427, 127).  Below 0.7 Msun it is extrapolated; those
+    lifetimes exceed the age of the Universe either way.
+    """
+    x = np.log10(np.asarray(mass, dtype=float))
+    z = np.asarray(feh, dtype=float)
+    # Horner form of the polynomial above
+    return 9.983 + x * (-3.377 + x * (0.780 + 0.023 * x)) + z * (0.234 + x * (-0.307 + 0.086 * x))
+
+
+def log_pre_main_sequence_time(mass: ArrayLike, feh: ArrayLike) -> FloatArray:
+    """log10 of the pre-main-sequence contraction time in yr (Msun, dex).
+
+    ``log t = 7.607 - 1.943x - 0.648x^2 + 0.279[M/H]``, x = log10 M: a fit (0.1-7 Msun,
+    rms 0.065 dex) to the age at which the radius first reaches its ZAMS value within
+    0.01 dex in the PARSEC v1.2S tracks (Bressan et al. 2012).
+    """
+    x = np.log10(np.asarray(mass, dtype=float))
+    return 7.607 + x * (-1.943 - 0.648 * x) + 0.279 * np.asarray(feh, dtype=float)
+
+
+#: Shape of the approach to the ZAMS: log10(R / R_ZAMS) = 0.01 dex (t / t_c)^-0.85, with
+#: t_c the PARSEC contraction time of :func:`log_pre_main_sequence_time` (defined as the
+#: age at which R first comes within 0.01 dex of its ZAMS value, so the form matches it at
+#: t = t_c by construction).  Schematic, ours: it gives ~0.07 dex at t_c / 10 and ~0.5 dex
+#: at t_c / 100 (0.1 Msun: ~0.16 Rsun at 80 Myr, ~0.4 Rsun at 8 Myr, close to published
+#: low-mass tracks, from memory), and is capped at 1 dex.
+PMS_RADIUS_EXCESS_AT_TC_DEX = 0.01
+PMS_RADIUS_EXCESS_SLOPE = 0.85
+PMS_RADIUS_EXCESS_MAX_DEX = 1.0
+
+
+def pre_main_sequence_log_radius_excess(
+    age: ArrayLike, contraction_time: ArrayLike
+) -> FloatArray:
+    """log10(R / R_ZAMS) of a contracting pre-main-sequence star at ``age`` (yr), >= 0.
+
+    ``0.01 (t / t_c)^-0.85`` dex up to the contraction time t_c (yr), 0 after it; see
+    :data:`PMS_RADIUS_EXCESS_SLOPE`.  Schematic: it reproduces the definition of t_c
+    (0.01 dex at t_c, Bressan et al. 2012 tracks) and the steep early contraction of fully
+    convective stars on their Hayashi tracks (R ~ t^-1/3 to t^-0.4; Hayashi 1961, PASJ 13,
+    450, from memory), without modelling either.
+    """
+    ratio = np.asarray(age, dtype=float) / np.asarray(contraction_time, dtype=float)
+    excess = PMS_RADIUS_EXCESS_AT_TC_DEX * ratio ** (-PMS_RADIUS_EXCESS_SLOPE)
+    return np.where(ratio < 1.0, np.minimum(excess, PMS_RADIUS_EXCESS_MAX_DEX), 0.0)
+
+
+# =========================================================================================
+# Main sequence: Eker et al. (2018) interrelated MLR / MRR / MTR
+# =========================================================================================
+
+#: Eker et al. 2018, MNRAS 479, 5491, Table 4 (six-piece MLR, log L = a log M + b, fitted
+#: over 0.179-31 Msun); coefficients from memory.  Rows: (upper mass edge, a, b).
+EKER_2018_MLR: tuple[tuple[float, float, float], ...] = (
+    (0.45, 2.028, -0.976),
+    (0.72, 4.572, -0.102),
+    (1.05, 5.743, -0.007),
+    (2.40, 4.329, 0.010),
+    (7.00, 3.967, 0.093),
+    (np.inf, 2.865, 1.105),
+)
+#: Eker et al. 2018, Table 5: mass-radius R = a M^2 + b M + c for M <= 1.5 Msun, and
+#: mass-Teff log T = a (log M)^2 + b log M + c for M > 1.5 Msun (from memory).
+EKER_2018_MRR: tuple[float, float, float] = (0.438, 0.479, 0.075)
+EKER_2018_MTR: tuple[float, float, float] = (-0.170, 0.888, 3.671)
+EKER_2018_MRR_MAX_MASS = 1.5
+
+#: Main-sequence evolution, ZAMS to the end of the main sequence (TAMS), by log M (Msun):
+#: total brightening in log L and growth in log R.  Schematic values of ours, chosen to
+#: match the ~0.3-0.5 dex ZAMS-TAMS brightening and, roughly, the PARSEC main-sequence
+#: log g ranges by mass quoted in PHYSICS.md section 5 (1.0-1.2 Msun 4.20-4.55, 1.5-2 Msun
+#: 3.54-4.36, 3-5 Msun 3.45-4.37), from Bressan et al. 2012.
+MS_EVOLUTION_LOG_MASS: tuple[float, ...] = (0.0, 0.079, 0.176, 0.3, 0.7)
+MS_BRIGHTENING_DEX: tuple[float, ...] = (0.30, 0.33, 0.36, 0.40, 0.50)
+MS_RADIUS_GROWTH_DEX: tuple[float, ...] = (0.15, 0.20, 0.30, 0.35, 0.40)
+#: Age at which a star sits on the Eker et al. (2018) relations: their calibrators are
+#: nearby field stars, which we take to be as old as the Sun, 4.6 Gyr (or half-way through
+#: the main sequence if that is shorter).  Schematic, ours.
+EKER_2018_REFERENCE_AGE_YR = 4.6e9
+
+
+def teff_stefan_boltzmann(log_luminosity: ArrayLike, radius: ArrayLike) -> FloatArray:
+    """Teff (K) of a black-body sphere of log10 L/Lsun and radius R (Rsun).
+
+    Stefan-Boltzmann, ``Teff = Teff_sun (L / R^2)^(1/4)`` in IAU 2015 nominal solar units:
+    the inverse of :func:`catcheck.physics.stellar.log_luminosity_stefan_boltzmann`.
+    """
+    log_luminosity = np.asarray(log_luminosity, dtype=float)
+    radius = np.asarray(radius, dtype=float)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        return TEFF_SUN.value * 10.0 ** (0.25 * (log_luminosity - 2.0 * np.log10(radius)))
+
+
+def eker2018_log_luminosity(mass: ArrayLike) -> FloatArray:
+    """Main-sequence log10 L/Lsun from mass (Msun): Eker et al. 2018 six-piece MLR.
+
+    Eker Z. et al., 2018, MNRAS 479, 5491, Table 4 (coefficients from memory): detached
+    eclipsing binaries, 0.179-31 Msun; extrapolated linearly in log M outside that range.
+    The six pieces were fitted separately and meet only to within 0.08 dex at the break
+    masses (largest at 0.72 and 7 Msun); we keep them as published, well inside the
+    relation's own 0.1-0.2 dex scatter.
+    """
+    mass = np.asarray(mass, dtype=float)
+    edges = np.array([row[0] for row in EKER_2018_MLR[:-1]])
+    piece = np.searchsorted(edges, mass, side="left")
+    slope = np.array([row[1] for row in EKER_2018_MLR])[piece]
+    zero = np.array([row[2] for row in EKER_2018_MLR])[piece]
+    return slope * np.log10(mass) + zero
+
+
+def eker2018_radius(mass: ArrayLike) -> FloatArray:
+    """Main-sequence radius (Rsun) from mass (Msun), Eker et al. 2018 interrelated relations.
+
+    M <= 1.5 Msun: the quadratic mass-radius relation ``R = 0.438 M^2 + 0.479 M + 0.075``;
+    above, R follows from the MLR and the mass-Teff relation
+    ``log T = -0.170 (log M)^2 + 0.888 log M + 3.671`` through Stefan-Boltzmann, which is
+    how Eker et al. (2018, Table 5) complete each relation (coefficients from memory).
+    The two branches differ by ~3% at 1.5 Msun.
+    """
+    mass = np.asarray(mass, dtype=float)
+    a, b, c = EKER_2018_MRR
+    quadratic = a * mass**2 + b * mass + c
+    ta, tb, tc = EKER_2018_MTR
+    logm = np.log10(mass)
+    teff = 10.0 ** (ta * logm**2 + tb * logm + tc)
+    from_teff = radius_stefan_boltzmann(10.0 ** eker2018_log_luminosity(mass), teff)
+    return np.where(mass <= EKER_2018_MRR_MAX_MASS, quadratic, from_teff)
+
+
+class StarProperties(NamedTuple):
+    """True (noise-free) properties of a set of stars; obey Stefan-Boltzmann exactly."""
+
+    mass: FloatArray  # present mass, Msun
+    log_luminosity: FloatArray  # log10 L/Lsun
+    radius: FloatArray  # Rsun
+    teff: FloatArray  # K
+
+
+def main_sequence_star(mass: ArrayLike, fraction: ArrayLike) -> StarProperties:
+    """A main-sequence star of initial mass M (Msun) at ``fraction`` (0 ZAMS .. 1 TAMS) of its life.
+
+    The Eker et al. (2018) relations (:func:`eker2018_log_luminosity`,
+    :func:`eker2018_radius`) give the star at the reference fraction
+    f_ref = min(0.5, 4.6 Gyr / t_MS) (:data:`EKER_2018_REFERENCE_AGE_YR`, t_MS at solar
+    metallicity from :func:`log_main_sequence_lifetime`); log L and log R then change
+    linearly in ``fraction`` by :data:`MS_BRIGHTENING_DEX` and :data:`MS_RADIUS_GROWTH_DEX`
+    between ZAMS and TAMS (schematic), and Teff follows from Stefan-Boltzmann, so the
+    triple is exactly self-consistent.  Low-mass dwarfs, whose f_ref is ~0, stay on the
+    relations; the Sun (1 Msun at 4.57 Gyr) comes out within 2% of its nominal L, R, Teff.
+    """
+    mass = np.asarray(mass, dtype=float)
+    f = np.clip(np.asarray(fraction, dtype=float), 0.0, 1.0)
+    logm = np.log10(mass)
+    f_ref = np.minimum(
+        0.5, EKER_2018_REFERENCE_AGE_YR / 10.0 ** log_main_sequence_lifetime(mass, 0.0))
+    brighten = np.interp(logm, MS_EVOLUTION_LOG_MASS, MS_BRIGHTENING_DEX)
+    grow = np.interp(logm, MS_EVOLUTION_LOG_MASS, MS_RADIUS_GROWTH_DEX)
+    log_l = eker2018_log_luminosity(mass) + brighten * (f - f_ref)
+    radius = eker2018_radius(mass) * 10.0 ** (grow * (f - f_ref))
+    return StarProperties(mass, log_l, radius, teff_stefan_boltzmann(log_l, radius))
+
+
+# =========================================================================================
+# White dwarfs
+# =========================================================================================
+
+#: Cummings et al. 2018, ApJ 866, 21 (PARSEC-based piecewise-linear initial-final mass
+#: relation), from memory: rows (upper initial-mass edge, slope, intercept), M_f = a M_i + b.
+CUMMINGS_2018_IFMR: tuple[tuple[float, float, float], ...] = (
+    (2.85, 0.080, 0.489),
+    (3.60, 0.187, 0.184),
+    (np.inf, 0.107, 0.471),
+)
+#: Chandrasekhar mass for mu_e = 2 in the Nauenberg (1972) fit, and its radius scale
+#: 7.8e8 cm = 0.0112 Rsun (from memory).
+NAUENBERG_1972_MCH = 1.454
+NAUENBERG_1972_R0 = 0.0112
+#: Mestel (1952) cooling: t_cool = 8.8e6 yr (A/12)^-1 M^(5/7) (mu/2)^(-2/7) L^(-5/7),
+#: with A = 12 (carbon ions) and mu = 2 (from memory; textbook form).
+MESTEL_TIMESCALE_YR = 8.8e6
+
+
+def white_dwarf_mass_cummings2018(initial_mass: ArrayLike) -> FloatArray:
+    """White-dwarf mass (Msun) from progenitor initial mass (Msun), Cummings et al. 2018.
+
+    Cummings J. D. et al., 2018, ApJ 866, 21, PARSEC-based IFMR (from memory):
+    0.080 M_i + 0.489 (0.85-2.85 Msun), 0.187 M_i + 0.184 (2.85-3.60), 0.107 M_i + 0.471
+    (3.60-7.20).  Continuous at the edges to 0.001 Msun; a ~0.6 Msun white dwarf comes
+    from a ~1.5-2 Msun star.
+    """
+    m = np.asarray(initial_mass, dtype=float)
+    edges = np.array([row[0] for row in CUMMINGS_2018_IFMR[:-1]])
+    piece = np.searchsorted(edges, m, side="left")
+    slope = np.array([row[1] for row in CUMMINGS_2018_IFMR])[piece]
+    zero = np.array([row[2] for row in CUMMINGS_2018_IFMR])[piece]
+    return slope * m + zero
+
+
+def white_dwarf_radius_nauenberg(mass: ArrayLike) -> FloatArray:
+    """Zero-temperature white-dwarf radius (Rsun) from mass (Msun), Nauenberg 1972.
+
+    Nauenberg M., 1972, ApJ 175, 417: ``R = 0.0112 Rsun [(M/M_ch)^(-2/3) - (M/M_ch)^(2/3)]^(1/2)``
+    with M_ch = 1.454 Msun (mu_e = 2); coefficients from memory.  0.6 Msun gives
+    0.0125 Rsun (log g 8.0).
+    """
+    x = np.asarray(mass, dtype=float) / NAUENBERG_1972_MCH
+    with np.errstate(invalid="ignore"):
+        return NAUENBERG_1972_R0 * np.sqrt(x ** (-2.0 / 3.0) - x ** (2.0 / 3.0))
+
+
+def white_dwarf_log_luminosity_mestel(mass: ArrayLike, cooling_age: ArrayLike) -> FloatArray:
+    """log10 L/Lsun of a white dwarf of mass M (Msun) after ``cooling_age`` yr, Mestel cooling.
+
+    Mestel L., 1952, MNRAS 112, 583: ``t_cool = 8.8e6 yr M^(5/7) L^(-5/7)`` for a carbon
+    core (A = 12, mu = 2; textbook form, from memory), inverted for L.  Crude at the
+    hot (neutrino cooling) and cold (crystallisation) ends.
+    """
+    mass = np.asarray(mass, dtype=float)
+    t = np.maximum(np.asarray(cooling_age, dtype=float), 1.0)
+    return -1.4 * np.log10(t / (MESTEL_TIMESCALE_YR * mass ** (5.0 / 7.0)))
+
+
+# =========================================================================================
+# Evolutionary stages of a simple stellar population
+# =========================================================================================
+
+
+class Stage(IntEnum):
+    """Evolutionary stage of a synthetic star (internal codes of this module)."""
+
+    PMS = 0  # pre-main sequence, still contracting
+    MS = 1  # core hydrogen burning
+    SGB = 2  # subgiant: crossing from the end of the MS to the red giant branch
+    RGB = 3  # red giant branch
+    CLUMP = 4  # core helium burning, low mass (< 2.2 Msun): red clump
+    CHEB = 5  # core helium burning, intermediate mass (2.2-8 Msun)
+    AGB = 6  # asymptotic giant branch
+    SUPERGIANT = 7  # post-main-sequence star above 8 Msun (red supergiant)
+    WD = 8  # white dwarf
+    REMNANT = 9  # neutron star or black hole: not in an optical catalogue
+
+
+#: Post-main-sequence windows as multiples of the main-sequence lifetime (age / t_MS):
+#: schematic, ours.  Hydrogen-shell and core-helium burning together last ~10-20% of the
+#: main-sequence lifetime (textbook, from memory).  Upper edges of SGB, RGB, core He
+#: burning and AGB; beyond the last a star is a white dwarf (or a remnant above M_UP).
+POST_MS_WINDOWS: tuple[float, float, float, float] = (1.04, 1.10, 1.18, 1.20)
+SUPERGIANT_WINDOW = 1.10
+#: Most massive white-dwarf progenitor, ~6-8 Msun (from memory; PHYSICS.md section 4).
+M_UP = 8.0
+#: Helium-flash mass: below it core helium burning starts degenerate (red clump),
+#: ~2.2 Msun (PARSEC envelope split in PHYSICS.md section 5).
+M_HEF = 2.2
+
+
+def evolutionary_stage(mass: ArrayLike, age: ArrayLike, feh: ArrayLike) -> NDArray[np.int8]:
+    """Stage (:class:`Stage` codes) of stars of initial mass M (Msun) at ``age`` (yr), [M/H] (dex).
+
+    Main-sequence lifetime from :func:`log_main_sequence_lifetime` (PARSEC v1.2S fit),
+    contraction time from :func:`log_pre_main_sequence_time`; the post-main-sequence
+    split follows ``POST_MS_WINDOWS`` (schematic).
+    """
+    mass = np.asarray(mass, dtype=float)
+    age = np.broadcast_to(np.asarray(age, dtype=float), mass.shape)
+    feh = np.broadcast_to(np.asarray(feh, dtype=float), mass.shape)
+    phi = age / 10.0 ** log_main_sequence_lifetime(mass, feh)
+    pms = age < 10.0 ** log_pre_main_sequence_time(mass, feh)
+    sgb, rgb, cheb, agb = POST_MS_WINDOWS
+    low = mass <= M_UP
+    conditions = [
+        phi < 1.0,
+        ~low & (phi < SUPERGIANT_WINDOW),
+        ~low,
+        phi < sgb,
+        phi < rgb,
+        phi < cheb,
+        phi < agb,
+    ]
+    core_he = np.where(mass < M_HEF, Stage.CLUMP, Stage.CHEB)
+    choices = [
+        np.where(pms, Stage.PMS, Stage.MS),
+        Stage.SUPERGIANT,
+        Stage.REMNANT,
+        Stage.SGB,
+        Stage.RGB,
+        core_he,
+        Stage.AGB,
+    ]
+    return np.select(conditions, choices, default=Stage.WD).astype(np.int8)
+
+
+def red_giant_branch_teff(log_luminosity: ArrayLike, feh: ArrayLike) -> FloatArray:
+    """Teff (K) along a schematic red giant branch of log10 L/Lsun and [M/H].
+
+    ``Teff = 4900 - 380 (log L - 0.8) - 250 [M/H]``, clipped to 3300-4950 K: a straight-line
+    stand-in of ours for the slope of solar-metallicity PARSEC giant branches (cooler as
+    they climb, hotter when metal-poor), inside the PARSEC RGB envelope of 3023-5140 K
+    (PHYSICS.md section 5).
+    """
+    log_l = np.asarray(log_luminosity, dtype=float)
+    feh = np.asarray(feh, dtype=float)
+    return np.clip(4900.0 - 380.0 * (log_l - 0.8) - 250.0 * feh, 3300.0, 4950.0)
+
+
+def stellar_properties(
+    mass: ArrayLike,
+    age: ArrayLike,
+    feh: ArrayLike,
+    u1: ArrayLike,
+    u2: ArrayLike,
+) -> tuple[NDArray[np.int8], StarProperties]:
+    """Stage and true properties of stars of initial mass M (Msun), age (yr) and [M/H] (dex).
+
+    ``u1`` and ``u2`` are uniform deviates that place each evolved star within the spread
+    of its stage (luminosity and Teff of clump, AGB and supergiant stars).  Returns the
+    :class:`Stage` codes and :class:`StarProperties` obeying Stefan-Boltzmann exactly.
+    Per stage:
+
+    - MS: :func:`main_sequence_star` at fraction age / t_MS.
+    - PMS: the ZAMS star swollen by :func:`pre_main_sequence_log_radius_excess` at the ZAMS
+      Teff (vertical Hayashi track), L from Stefan-Boltzmann.
+    - SGB: log L and log Teff interpolated from the end of the MS to the base of the giant
+      branch (Teff >= 4400 K).
+    - RGB: log L from max(0.8, log L_TAMS) to max(3.0, base + 0.6) (at most 4.3), more stars
+      low on the branch; Teff from :func:`red_giant_branch_teff`; up to 0.15 Msun lost
+      towards the tip below 2.2 Msun.
+    - CLUMP: log L 1.60-1.85, Teff 4550-4850 K (less 250 K per dex [M/H]), 0.15 Msun lost:
+      inside the PARSEC clump envelope (log L 1.54-2.46, Teff 4309-5015 K).
+    - CHEB (2.2-8 Msun): log L = log L_TAMS + 0.2-0.5, Teff 4300-5200 K (red part only,
+      no blue loops).
+    - AGB: log L from log L_TAMS + 0.5 (kept within 2.8-4.2) up to 0.8 dex higher (at most
+      4.6), Teff 3200-3900 K, 10-25% mass lost: inside the AGB ranges quoted from memory in
+      PHYSICS.md section 5 (log L 2.7-4.6, Teff 2000-4000 K, log g -1 to 1.5).
+    - SUPERGIANT (> 8 Msun): log L = log L_TAMS + 0.1-0.3, Teff 3500-4500 K.
+    - WD: mass from :func:`white_dwarf_mass_cummings2018` clipped to 0.5-0.9 Msun, radius
+      :func:`white_dwarf_radius_nauenberg`, L from :func:`white_dwarf_log_luminosity_mestel`
+      after cooling since the end of the AGB; Teff clipped to 5000-40000 K and L recomputed.
+    - REMNANT: NaN (such stars do not belong in an optical catalogue; callers redraw them).
+
+    The stage rules and spreads not attributed to a paper are schematic choices of ours,
+    bounded by the PARSEC envelopes of PHYSICS.md section 5.
+    """
+    m0 = np.asarray(mass, dtype=float)
+    age = np.broadcast_to(np.asarray(age, dtype=float), m0.shape)
+    feh = np.broadcast_to(np.asarray(feh, dtype=float), m0.shape)
+    u1 = np.asarray(u1, dtype=float)
+    u2 = np.asarray(u2, dtype=float)
+    stage = evolutionary_stage(m0, age, feh)
+    t_ms = 10.0 ** log_main_sequence_lifetime(m0, feh)
+    phi = age / t_ms
+
+    ms = main_sequence_star(m0, phi)
+    tams = main_sequence_star(m0, 1.0)
+    zams = main_sequence_star(m0, 0.0)
+    log_t_tams = np.log10(tams.teff)
+
+    mass_now = m0.copy()
+    log_l = ms.log_luminosity.copy()
+    log_teff = np.log10(ms.teff)
+    radius = ms.radius.copy()
+
+    def take(sel: NDArray[np.bool_], ll: ArrayLike, lt: ArrayLike) -> None:
+        log_l[sel] = np.broadcast_to(ll, m0.shape)[sel]
+        log_teff[sel] = np.broadcast_to(lt, m0.shape)[sel]
+
+    # --- pre-main sequence: swollen ZAMS star at the ZAMS Teff
+    sel = stage == Stage.PMS
+    excess = pre_main_sequence_log_radius_excess(age, 10.0 ** log_pre_main_sequence_time(m0, feh))
+    r_pms = zams.radius * 10.0**excess
+    take(sel, zams.log_luminosity + 2.0 * excess, np.log10(zams.teff))
+
+    # --- giant branch geometry shared by SGB and RGB
+    sgb_end, rgb_end, _, agb_end = POST_MS_WINDOWS
+    rgb_lo = np.maximum(0.8, tams.log_luminosity)
+    rgb_hi = np.minimum(np.maximum(3.0, rgb_lo + 0.6), 4.3)
+    base_teff = red_giant_branch_teff(rgb_lo, feh)
+
+    sel = stage == Stage.SGB
+    tau = np.clip((phi - 1.0) / (sgb_end - 1.0), 0.0, 1.0)
+    take(
+        sel,
+        tams.log_luminosity + (rgb_lo - tams.log_luminosity) * tau,
+        log_t_tams + (np.log10(np.maximum(base_teff, 4400.0)) - log_t_tams) * tau,
+    )
+
+    sel = stage == Stage.RGB
+    tau = np.clip((phi - sgb_end) / (rgb_end - sgb_end), 0.0, 1.0)
+    rgb_l = rgb_lo + (rgb_hi - rgb_lo) * tau**2
+    take(sel, rgb_l, np.log10(red_giant_branch_teff(rgb_l, feh)))
+    mass_now[sel] = (m0 - np.where(m0 < M_HEF, 0.15 * tau**2, 0.0))[sel]
+
+    sel = stage == Stage.CLUMP
+    take(sel, 1.60 + 0.25 * u1, np.log10(np.clip(4550.0 + 300.0 * u2 - 250.0 * feh, 4450, 4900)))
+    mass_now[sel] = m0[sel] - 0.15
+
+    sel = stage == Stage.CHEB
+    take(sel, tams.log_luminosity + 0.2 + 0.3 * u1, np.log10(4300.0 + 900.0 * u2))
+
+    sel = stage == Stage.AGB
+    agb_lo = np.clip(tams.log_luminosity + 0.5, 2.8, 4.2)
+    agb_hi = np.minimum(agb_lo + 0.8, 4.6)
+    take(sel, agb_lo + (agb_hi - agb_lo) * u1, np.log10(3200.0 + 700.0 * u2))
+    mass_now[sel] = (m0 * (0.9 - 0.15 * u1))[sel]
+
+    sel = stage == Stage.SUPERGIANT
+    take(sel, tams.log_luminosity + 0.1 + 0.2 * u1, np.log10(3500.0 + 1000.0 * u2))
+    mass_now[sel] = (m0 * (1.0 - 0.05 * u1))[sel]
+
+    # --- giants: radius from Stefan-Boltzmann with the chosen L and Teff
+    giant = (stage >= Stage.SGB) & (stage <= Stage.SUPERGIANT)
+    radius = np.where(giant, radius_stefan_boltzmann(10.0**log_l, 10.0**log_teff), radius)
+    radius = np.where(stage == Stage.PMS, r_pms, radius)
+
+    # --- white dwarfs
+    sel = stage == Stage.WD
+    m_wd = np.clip(white_dwarf_mass_cummings2018(m0), 0.5, 0.9)
+    r_wd = white_dwarf_radius_nauenberg(m_wd)
+    t_cool = age - agb_end * t_ms
+    l_wd = white_dwarf_log_luminosity_mestel(m_wd, t_cool)
+    teff_wd = np.clip(teff_stefan_boltzmann(l_wd, r_wd), 5000.0, 40000.0)
+    mass_now[sel] = m_wd[sel]
+    radius[sel] = r_wd[sel]
+    log_teff[sel] = np.log10(teff_wd[sel])
+    log_l[sel] = (2.0 * np.log10(r_wd) + 4.0 * np.log10(teff_wd / TEFF_SUN.value))[sel]
+
+    teff = 10.0**log_teff
+    # every non-MS branch set (L, Teff) and took R from them, or (R, Teff) and set L:
+    # re-derive L from R and Teff once so that the triple is exact to rounding.
+    log_l = 2.0 * np.log10(radius) + 4.0 * np.log10(teff / TEFF_SUN.value)
+    sel = stage == Stage.REMNANT
+    for arr in (mass_now, log_l, radius, teff):
+        arr[sel] = np.nan
+    return stage, StarProperties(mass_now, log_l, radius, teff)
+
+
+# =========================================================================================
+# MK spectral types
+# =========================================================================================
+
+#: Mean dwarf sequence, spectral type -> Teff (K): Pecaut & Mamajek 2013, ApJS 208, 9,
+#: Table 5, as updated in E. Mamajek's table version 2022.04.16 (whole and half subtypes).
+DWARF_TEFF: tuple[tuple[str, float], ...] = (
+    ("O3", 44900), ("O4", 42900), ("O5", 41400), ("O5.5", 40500), ("O6", 39500),
+    ("O6.5", 38300), ("O7", 37100), ("O7.5", 36100), ("O8", 35100), ("O8.5", 34300),
+    ("O9", 33300), ("O9.5", 31900), ("B0", 31400), ("B0.5", 29000), ("B1", 26000),
+    ("B1.5", 24500), ("B2", 20600), ("B2.5", 18500), ("B3", 17000), ("B4", 16400),
+    ("B5", 15700), ("B6", 14500), ("B7", 14000), ("B8", 12300), ("B9", 10700),
+    ("B9.5", 10400), ("A0", 9700), ("A1", 9300), ("A2", 8800), ("A3", 8600), ("A4", 8250),
+    ("A5", 8100), ("A6", 7910), ("A7", 7760), ("A8", 7590), ("A9", 7400), ("F0", 7220),
+    ("F1", 7020), ("F2", 6820), ("F3", 6750), ("F4", 6670), ("F5", 6550), ("F6", 6350),
+    ("F7", 6280), ("F8", 6180), ("F9", 6050), ("F9.5", 5990), ("G0", 5930), ("G1", 5860),
+    ("G2", 5770), ("G3", 5720), ("G4", 5680), ("G5", 5660), ("G6", 5600), ("G7", 5550),
+    ("G8", 5480), ("G9", 5380), ("K0", 5270), ("K1", 5170), ("K2", 5100), ("K3", 4830),
+    ("K4", 4600), ("K5", 4440), ("K6", 4300), ("K7", 4100), ("K8", 3990), ("K9", 3930),
+    ("M0", 3850), ("M0.5", 3770), ("M1", 3660), ("M1.5", 3620), ("M2", 3560),
+    ("M2.5", 3470), ("M3", 3430), ("M3.5", 3270), ("M4", 3210), ("M4.5", 3110),
+    ("M5", 3060), ("M5.5", 2930), ("M6", 2810), ("M6.5", 2740), ("M7", 2680),
+    ("M7.5", 2630), ("M8", 2570), ("M8.5", 2420), ("M9", 2380), ("M9.5", 2350),
+)
+#: Giant (luminosity class III) spectral type -> Teff (K); approximate, from memory
+#: (cf. the giant scales of Alonso et al. 1999, A&AS 140, 261 and van Belle et al. 1999,
+#: AJ 117, 521): G-K giants are a few hundred K cooler than dwarfs of the same type.
+GIANT_TEFF: tuple[tuple[str, float], ...] = (
+    ("F5", 6400), ("G0", 5600), ("G5", 5100), ("G8", 4950), ("K0", 4800), ("K1", 4650),
+    ("K2", 4500), ("K3", 4350), ("K4", 4150), ("K5", 3950), ("M0", 3850), ("M1", 3750),
+    ("M2", 3650), ("M3", 3550), ("M4", 3450), ("M5", 3350), ("M6", 3250), ("M7", 3150),
+)
+#: White-dwarf temperature index 50400 / Teff in half steps (McCook & Sion 1999, ApJS
+#: 121, 1, from memory); hydrogen-atmosphere (DA) spectra assumed.
+WD_TEMPERATURE_INDEX = 50400.0
+
+
+def _nearest_type(teff: FloatArray, table: tuple[tuple[str, float], ...]) -> NDArray[np.object_]:
+    names = np.array([name for name, _ in table], dtype=object)
+    log_t = np.log10(np.array([t for _, t in table], dtype=float))  # decreasing
+    # midpoints between neighbours in log Teff; np.searchsorted needs increasing order
+    mids = 0.5 * (log_t[:-1] + log_t[1:])
+    idx = len(mids) - np.searchsorted(mids[::-1], np.log10(teff), side="right")
+    return names[idx]
+
+
+def mk_spectral_type(teff: ArrayLike, luminosity_class: ArrayLike) -> NDArray[np.object_]:
+    """MK spectral type strings for Teff (K) and a luminosity class per star.
+
+    ``luminosity_class`` holds "V", "IV", "III", "Ib" or "D" (white dwarf).  Dwarfs and
+    subgiants take the nearest type (in log Teff) of the Pecaut & Mamajek (2013) mean dwarf
+    sequence (:data:`DWARF_TEFF`); giants and supergiants the approximate giant scale
+    :data:`GIANT_TEFF`; white dwarfs "DA" plus the temperature index 50400/Teff rounded to
+    a half (McCook & Sion 1999).  Returns an object array of str.
+    """
+    teff = np.asarray(teff, dtype=float)
+    lclass = np.asarray(luminosity_class, dtype=object)
+    giant = np.isin(lclass, ["III", "Ib"])
+    wd = lclass == "D"
+    out = np.where(giant, _nearest_type(teff, GIANT_TEFF), _nearest_type(teff, DWARF_TEFF))
+    out = out + lclass
+    if wd.any():
+        index = np.round(2.0 * WD_TEMPERATURE_INDEX / teff[wd]) / 2.0
+        values, inverse = np.unique(index, return_inverse=True)
+        labels = np.array([f"DA{v:g}" for v in values], dtype=object)
+        out[wd] = labels[inverse]
+    return out
