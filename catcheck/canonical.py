@@ -21,7 +21,7 @@ class StarBatch:
     ``values`` maps numeric quantities to float64 arrays (NaN where the catalogue has no
     value); ``errors`` maps them to canonical 1-sigma arrays where the profile gives errors;
     ``phase`` holds phase codes (index into PHASE_CODES, -1 for none); ``text`` holds text
-    quantities such as spectral types as Python string arrays (None for missing).
+    quantities such as spectral types as Arrow string arrays (null for missing).
     """
 
     first_row: int
@@ -30,7 +30,7 @@ class StarBatch:
     values: dict[str, np.ndarray] = field(default_factory=dict)
     errors: dict[str, np.ndarray] = field(default_factory=dict)
     phase: np.ndarray | None = None
-    text: dict[str, np.ndarray] = field(default_factory=dict)
+    text: dict[str, pa.Array] = field(default_factory=dict)
     groups: pa.Array | None = None
 
     def __len__(self) -> int:
@@ -41,7 +41,7 @@ class StarBatch:
         if quantity == "phase":
             return self.phase != NO_PHASE
         if quantity in self.text:
-            return np.array([v is not None for v in self.text[quantity]], dtype=bool)
+            return self.text[quantity].is_valid().to_numpy(zero_copy_only=False)
         return ~np.isnan(self.values[quantity])
 
     def error_or(self, quantity: str, default: np.ndarray | float) -> np.ndarray:
@@ -113,7 +113,7 @@ def canonical_batch(profile: Profile, batch: pa.RecordBatch, first_row: int,
         if name == "phase":
             stars.phase = phases.codes(column)
         elif not QUANTITIES[name].numeric:
-            stars.text[name] = np.asarray(pc.cast(column, pa.string()).to_pylist(), dtype=object)
+            stars.text[name] = pc.cast(column, pa.string())
         else:
             _add_numeric(stars, mapping, batch)
     return stars

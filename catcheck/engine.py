@@ -2,9 +2,11 @@
 
 Per batch: canonical arrays (:mod:`catcheck.canonical`), then the column-schema layer
 (pandera, for the physical ranges), then the row rules.  Per rule it counts rows checked
-(every needed value present), skipped (some needed value missing or NaN: never flagged)
-and flagged.  Memory is bounded by the batch size: flags leave through ``sink`` as they
-are found, and only counts and a few examples per rule stay behind.
+(every needed value present and the rule applicable to the row), skipped (some needed
+value missing or NaN, or the rule not applicable, e.g. a main-sequence rule on a giant;
+never flagged; the not-applicable part is also counted on its own) and flagged.
+Memory is bounded by the batch size: flags leave through ``sink`` as they are found, and
+only counts and a few examples per rule stay behind.
 """
 
 from __future__ import annotations
@@ -50,6 +52,7 @@ class RuleStats:
     status: str = "ran"
     checked: int = 0
     skipped: int = 0
+    not_applicable: int = 0
     flagged: int = 0
     assumed_errors: set[str] = field(default_factory=set)
     examples: list[dict[str, Any]] = field(default_factory=list)
@@ -64,6 +67,7 @@ class RuleStats:
             "status": self.status,
             "checked": self.checked,
             "skipped": self.skipped,
+            "not_applicable": self.not_applicable,
             "flagged": self.flagged,
         }
         if self.rule.check.uses_errors:
@@ -131,6 +135,9 @@ def _record(stats: RuleStats, stars: StarBatch, outcome: Outcome) -> pa.Table:
     available = np.ones(stars.size, dtype=bool)
     for quantity in stats.rule.needs:
         available &= stars.has(quantity)
+    if outcome.applies is not None:
+        stats.not_applicable += int((available & ~outcome.applies).sum())
+        available &= outcome.applies
     checked = int(available.sum())
     stats.checked += checked
     stats.skipped += stars.size - checked

@@ -241,9 +241,9 @@ def _expression_check(entry: Mapping[str, Any], where: str) -> Check:
     def evaluate(batch: StarBatch, params: Params) -> Outcome:
         env = batch.environment()
         with np.errstate(all="ignore"):
-            failed = when.evaluate(env, size=batch.size) & ~require.evaluate(env,
-                                                                             size=batch.size)
-        return Outcome(failed, lambda rows: message.render(env, rows))
+            applies = when.evaluate(env, size=batch.size)
+            failed = applies & ~require.evaluate(env, size=batch.size)
+        return Outcome(failed, lambda rows: message.render(env, rows), applies=applies)
 
     doc = Documentation(
         what=f"Rows where `{entry.get('when', 'always')}` must satisfy `{entry['require']}`.",

@@ -59,12 +59,13 @@ def markdown_report(summary: Mapping[str, Any],
         "",
         "## Rules",
         "",
-        "| rule | severity | checked | skipped | flagged | status |",
-        "|---|---|---:|---:|---:|---|",
+        "| rule | severity | checked | skipped | of which not applicable | flagged | status |",
+        "|---|---|---:|---:|---:|---:|---|",
     ]
     for rule in summary["rules"]:
         out.append(f"| `{rule['id']}` | {rule['severity']} | {rule['checked']:,} | "
-                   f"{rule['skipped']:,} | {rule['flagged']:,} | {rule['status']} |")
+                   f"{rule['skipped']:,} | {rule['not_applicable']:,} | {rule['flagged']:,} | "
+                   f"{rule['status']} |")
     assumed = [r for r in summary["rules"] if r.get("assumed_errors")]
     if assumed:
         out += ["", "Errors assumed where the catalogue gives none (see `catcheck explain`):"]

@@ -224,3 +224,7 @@ message = "{phase} star at {teff:.0f} K is too hot"
     row = giants_hot[0]
     assert flags.iloc[0]["message"] == f"RGB star at {frame.loc[row, 'Teff']:.0f} K is too hot"
     assert flags.iloc[0]["severity"] == "warning"
+    counts = stats(result, "hot-red-giant")
+    giants = int((frame["state"] == "giant").sum())
+    assert (counts["checked"], counts["not_applicable"]) == (giants, 9 - giants)
+    assert counts["checked"] + counts["skipped"] == 9

@@ -36,7 +36,9 @@ class Outcome:
 
     ``failed`` is a boolean mask over the batch; ``observed``, ``expected`` and
     ``deviation`` (in combined sigma) are arrays of the batch length or None; ``describe``
-    turns positions of failing rows into one message each.
+    turns positions of failing rows into one message each.  ``applies`` marks the rows the
+    rule is about (for example main-sequence stars only); rows outside it are counted as
+    skipped and reported as not applicable, never flagged.  None means every row.
     """
 
     failed: np.ndarray
@@ -44,6 +46,7 @@ class Outcome:
     observed: np.ndarray | None = None
     expected: np.ndarray | None = None
     deviation: np.ndarray | None = None
+    applies: np.ndarray | None = None
 
 
 @dataclass(frozen=True)
