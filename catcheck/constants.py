@@ -54,6 +54,10 @@ G_NEWTON = Constant(
 )
 C_LIGHT = Constant("speed of light in vacuum", 299792458.0, "m s-1", "CODATA 2018 (exact)")
 M_PROTON = Constant("proton mass", 1.67262192369e-27, "kg", "CODATA 2018", uncertainty=5.1e-37)
+HBAR = Constant("reduced Planck constant", 1.054571817e-34, "J s", "CODATA 2018 (exact)")
+ATOMIC_MASS_UNIT = Constant(
+    "atomic mass constant", 1.66053906660e-27, "kg", "CODATA 2018", uncertainty=5.0e-37
+)
 SIGMA_THOMSON = Constant(
     "Thomson cross-section", 6.6524587321e-29, "m2", "CODATA 2018", uncertainty=6.0e-38
 )

@@ -37,6 +37,7 @@ from numpy.typing import NDArray
 
 from catcheck.constants import AGE_OF_UNIVERSE, MBOL_SUN
 from catcheck.physics import populations as pop
+from catcheck.physics.main_sequence import eker2018_log_luminosity
 from catcheck.physics.populations import Stage
 from catcheck.physics.stellar import (
     LN10,
@@ -437,7 +438,7 @@ def _mass_floor(distance_pc: FloatArray) -> FloatArray:
     """
     log_l_min = -0.4 * (MBOL_LIMIT - 5.0 * np.log10(distance_pc / 10.0) - MBOL_SUN.value)
     grid = np.linspace(np.log10(IMF_MASS_RANGE[0]), np.log10(IMF_MASS_RANGE[1]), 2001)
-    log_l = pop.eker2018_log_luminosity(10.0**grid)
+    log_l = eker2018_log_luminosity(10.0**grid)
     return np.clip(10.0 ** np.interp(log_l_min, log_l, grid), *IMF_MASS_RANGE)
 
 

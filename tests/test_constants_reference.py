@@ -71,6 +71,12 @@ REFERENCES: dict[str, Reference] = {
     "C_LIGHT": Reference(codata2018.c, "CODATA 2018, exact (astropy codata2018.c)"),
     "M_PROTON": Reference(codata2018.m_p, "CODATA 2018 (astropy codata2018.m_p)",
                           uncertainty=codata2018.m_p.uncertainty * codata2018.m_p.unit),
+    # hbar = h / 2 pi is exact but irrational; CODATA prints 10 significant digits.
+    "HBAR": Reference(codata2018.hbar, "CODATA 2018, exact (astropy codata2018.hbar)",
+                      rtol=1e-9),
+    "ATOMIC_MASS_UNIT": Reference(
+        codata2018.u, "CODATA 2018 (astropy codata2018.u)",
+        uncertainty=codata2018.u.uncertainty * codata2018.u.unit),
     "SIGMA_THOMSON": Reference(
         codata2018.sigma_T, "CODATA 2018 (astropy codata2018.sigma_T)",
         uncertainty=codata2018.sigma_T.uncertainty * codata2018.sigma_T.unit),

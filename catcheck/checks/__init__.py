@@ -2,7 +2,15 @@
 
 from __future__ import annotations
 
-from catcheck.checks import physical_range, stefan_boltzmann
+from catcheck.checks import (
+    eddington,
+    mass_limits,
+    ms_mass_luminosity,
+    parallax_distance,
+    physical_range,
+    stefan_boltzmann,
+    surface_gravity,
+)
 from catcheck.checks.base import Check
 
 CHECKS: dict[str, Check] = {
@@ -10,5 +18,11 @@ CHECKS: dict[str, Check] = {
     for check in (
         physical_range.CHECK,
         stefan_boltzmann.CHECK,
+        surface_gravity.CHECK,
+        ms_mass_luminosity.CHECK,
+        eddington.CHECK,
+        mass_limits.HYDROGEN_BURNING,
+        mass_limits.CHANDRASEKHAR,
+        parallax_distance.CHECK,
     )
 }

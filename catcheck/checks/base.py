@@ -73,6 +73,31 @@ def combined_sigma(*terms: np.ndarray | float, floor: float = 0.0) -> np.ndarray
     return np.maximum(np.sqrt(total), floor)
 
 
+def excess_sigma(values: np.ndarray, sigma: np.ndarray | float, low: float | np.ndarray,
+                 high: float | np.ndarray) -> np.ndarray:
+    """How far ``values`` lie outside ``[low, high]``, in units of ``sigma``.
+
+    0 inside the band; ``inf`` outside it where sigma is 0, and for infinite values; NaN
+    where the value is missing.
+    """
+    values = np.asarray(values, dtype=float)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        excess = np.maximum(np.maximum(low - values, values - high), 0.0)
+        z = np.where(excess > 0, excess / sigma, 0.0)
+    z[np.isinf(values)] = np.inf
+    z[np.isnan(values)] = np.nan
+    return z
+
+
+def phase_is(batch: StarBatch, *codes: str) -> np.ndarray:
+    """Rows whose phase code is one of ``codes`` (False where no phase is given)."""
+    from catcheck.quantities import PHASE_INDEX
+
+    if batch.phase is None:
+        return np.zeros(batch.size, dtype=bool)
+    return np.isin(batch.phase, [PHASE_INDEX[c] for c in codes])
+
+
 def fmt(value: float) -> str:
     """A number for a message: 4 significant digits, no needless exponent."""
     return f"{value:.4g}"

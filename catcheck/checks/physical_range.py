@@ -17,7 +17,7 @@ import pandera.pandas as pandera
 from pandera.errors import SchemaErrors
 
 from catcheck.canonical import StarBatch
-from catcheck.checks.base import Check, Documentation, Outcome, Params, fmt
+from catcheck.checks.base import Check, Documentation, Outcome, Params, excess_sigma, fmt
 
 if TYPE_CHECKING:
     from catcheck.packs import Rule
@@ -37,21 +37,6 @@ DOC = Documentation(
     "6.2 sigma, and is flagged; 14.5 +- 1 Gyr is 0.7 sigma above and is not.",
     references=("Limits and their sources are in each rule's params (`catcheck explain`).",),
 )
-
-
-def excess_sigma(values: np.ndarray, sigma: np.ndarray, low: float, high: float
-                 ) -> np.ndarray:
-    """How far ``values`` lie outside ``[low, high]``, in units of ``sigma``.
-
-    0 inside the range, ``inf`` outside when sigma is 0 and for non-finite values, NaN
-    where the value is missing.
-    """
-    with np.errstate(invalid="ignore", divide="ignore"):
-        excess = np.maximum(np.maximum(low - values, values - high), 0.0)
-        z = np.where(excess > 0, excess / sigma, 0.0)
-    z[np.isinf(values)] = np.inf
-    z[np.isnan(values)] = np.nan
-    return z
 
 
 class RangeSchema:

@@ -20,6 +20,7 @@ import numpy as np
 from numpy.typing import ArrayLike, NDArray
 
 from catcheck.constants import TEFF_SUN
+from catcheck.physics.main_sequence import eker2018_log_luminosity
 from catcheck.physics.stellar import radius_stefan_boltzmann
 
 FloatArray = NDArray[np.float64]
@@ -197,16 +198,6 @@ def pre_main_sequence_log_radius_excess(
 # Main sequence: Eker et al. (2018) interrelated MLR / MRR / MTR
 # =========================================================================================
 
-#: Eker et al. 2018, MNRAS 479, 5491, Table 4 (six-piece MLR, log L = a log M + b, fitted
-#: over 0.179-31 Msun); coefficients from memory.  Rows: (upper mass edge, a, b).
-EKER_2018_MLR: tuple[tuple[float, float, float], ...] = (
-    (0.45, 2.028, -0.976),
-    (0.72, 4.572, -0.102),
-    (1.05, 5.743, -0.007),
-    (2.40, 4.329, 0.010),
-    (7.00, 3.967, 0.093),
-    (np.inf, 2.865, 1.105),
-)
 #: Eker et al. 2018, Table 5: mass-radius R = a M^2 + b M + c for M <= 1.5 Msun, and
 #: mass-Teff log T = a (log M)^2 + b log M + c for M > 1.5 Msun (from memory).
 EKER_2018_MRR: tuple[float, float, float] = (0.438, 0.479, 0.075)
@@ -237,23 +228,6 @@ def teff_stefan_boltzmann(log_luminosity: ArrayLike, radius: ArrayLike) -> Float
     radius = np.asarray(radius, dtype=float)
     with np.errstate(divide="ignore", invalid="ignore"):
         return TEFF_SUN.value * 10.0 ** (0.25 * (log_luminosity - 2.0 * np.log10(radius)))
-
-
-def eker2018_log_luminosity(mass: ArrayLike) -> FloatArray:
-    """Main-sequence log10 L/Lsun from mass (Msun): Eker et al. 2018 six-piece MLR.
-
-    Eker Z. et al., 2018, MNRAS 479, 5491, Table 4 (coefficients from memory): detached
-    eclipsing binaries, 0.179-31 Msun; extrapolated linearly in log M outside that range.
-    The six pieces were fitted separately and meet only to within 0.08 dex at the break
-    masses (largest at 0.72 and 7 Msun); we keep them as published, well inside the
-    relation's own 0.1-0.2 dex scatter.
-    """
-    mass = np.asarray(mass, dtype=float)
-    edges = np.array([row[0] for row in EKER_2018_MLR[:-1]])
-    piece = np.searchsorted(edges, mass, side="left")
-    slope = np.array([row[1] for row in EKER_2018_MLR])[piece]
-    zero = np.array([row[2] for row in EKER_2018_MLR])[piece]
-    return slope * np.log10(mass) + zero
 
 
 def eker2018_radius(mass: ArrayLike) -> FloatArray:

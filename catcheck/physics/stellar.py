@@ -10,7 +10,18 @@ from __future__ import annotations
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
 
-from catcheck.constants import LOGG_SUN, MBOL_SUN, TEFF_SUN
+from catcheck.constants import (
+    ATOMIC_MASS_UNIT,
+    C_LIGHT,
+    G_NEWTON,
+    GM_SUN,
+    HBAR,
+    L_SUN,
+    LOGG_SUN,
+    M_SUN_KG,
+    MBOL_SUN,
+    TEFF_SUN,
+)
 
 LN10 = float(np.log(10.0))
 
@@ -83,3 +94,59 @@ def sigma_log_stefan_boltzmann(
         s_r = 2.0 * sigma_radius / (radius * LN10)
         s_t = 4.0 * sigma_teff / (teff * LN10)
     return np.sqrt(s_l**2 + s_r**2 + s_t**2)
+
+
+def log_eddington_luminosity(mass: ArrayLike, hydrogen_fraction: float = 0.7
+                             ) -> NDArray[np.float64]:
+    """log10 of the Eddington luminosity (Lsun) for electron-scattering opacity.
+
+    ``L_Edd = 4 pi G M c / kappa`` with ``kappa = 0.2 (1 + X) cm^2/g`` (fully ionised gas,
+    Thomson scattering; e.g. Kippenhahn, Weigert & Weiss, Stellar Structure and Evolution,
+    2nd ed., section 17.7 / 22.4).  With the IAU 2015 nominal (GM)_sun and L_sun this is
+    3.84e4 (M/Msun) Lsun for X = 0.7 and 3.27e4 for X = 1 (computed).
+    """
+    mass = np.asarray(mass, dtype=float)
+    kappa_si = 0.02 * (1.0 + hydrogen_fraction)  # 0.2 (1 + X) cm^2/g in m^2/kg
+    per_solar_mass = 4.0 * np.pi * GM_SUN.value * C_LIGHT.value / kappa_si / L_SUN.value
+    with np.errstate(divide="ignore", invalid="ignore"):
+        return np.log10(per_solar_mass * mass)
+
+
+def chandrasekhar_mass(mean_molecular_weight_per_electron: float = 2.0) -> float:
+    """The Chandrasekhar mass in Msun for an ideal, fully degenerate, cold electron gas.
+
+    ``M_Ch = omega_3 (sqrt(3 pi) / 2) (hbar c / G)^(3/2) / (mu_e m_u)^2`` with
+    omega_3 = 2.01824 from the n = 3 Lane-Emden solution (Chandrasekhar 1939, An
+    Introduction to the Study of Stellar Structure, ch. XI); 1.456 Msun for mu_e = 2
+    (computed).  Realistic C/O white dwarfs (Coulomb corrections, neutronisation, general
+    relativity) become unstable a little lower, near 1.38-1.40 Msun.
+    """
+    omega_3 = 2.01824
+    numerator = omega_3 * np.sqrt(3.0 * np.pi) / 2.0 * (
+        HBAR.value * C_LIGHT.value / G_NEWTON.value) ** 1.5
+    mass_kg = numerator / (mean_molecular_weight_per_electron * ATOMIC_MASS_UNIT.value) ** 2
+    return float(mass_kg / M_SUN_KG.value)
+
+
+def hydrogen_burning_minimum_mass(feh: ArrayLike) -> NDArray[np.float64]:
+    """Lowest mass (Msun) that reaches a hydrogen-burning main sequence, by [M/H].
+
+    Conservative (lower-edge) values of the model range: 0.07 Msun at [M/H] >= -0.5,
+    rising linearly to 0.08 Msun at [M/H] <= -1.5 (Chabrier & Baraffe 1997, A&A 327, 1039
+    and later models of that family give 0.07-0.075 near solar metallicity and up to
+    0.08-0.09 for metal-poor stars; values from memory).  NaN [M/H] is taken as solar.
+    """
+    feh = np.asarray(feh, dtype=float)
+    feh = np.where(np.isnan(feh), 0.0, feh)
+    return np.interp(-feh, [0.5, 1.5], [0.07, 0.08])
+
+
+def distance_from_parallax(parallax: ArrayLike) -> NDArray[np.float64]:
+    """Distance in pc from a parallax in mas: ``d = 1000 / parallax``.
+
+    Inverting a parallax is a biased distance estimator when parallax / error < ~5
+    (e.g. Bailer-Jones 2015, PASP 127, 994): callers should use it only above that.
+    """
+    parallax = np.asarray(parallax, dtype=float)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        return 1000.0 / parallax

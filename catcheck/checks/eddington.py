@@ -1,0 +1,73 @@
+"""``eddington_limit``: no star shines stably above the Eddington luminosity of its mass."""
+
+from __future__ import annotations
+
+import numpy as np
+
+from catcheck.canonical import StarBatch
+from catcheck.checks.base import Check, Documentation, Outcome, Params, combined_sigma, fixed_needs
+from catcheck.physics.stellar import LN10, log_eddington_luminosity
+
+DOC = Documentation(
+    what="Flags a star more luminous than the Eddington luminosity of its catalogued mass.",
+    why="Above L_Edd radiation pressure on free electrons exceeds gravity and the outer "
+    "layers are blown away: no star is stable there.  A row above it usually has a mass in "
+    "the wrong unit or a luminosity off by orders of magnitude.",
+    formula="log L_Edd = log(4 pi G M c / kappa), kappa = 0.2 (1 + X) cm^2/g "
+    "(= 3.84e4 M/Msun Lsun for X = 0.7, computed)\n"
+    "sigma^2 = s_logL^2 + (s_M / (M ln10))^2, sigma >= floor_dex\n"
+    "flag when log L - log L_Edd > threshold * sigma",
+    caveats="Very massive stars and Wolf-Rayet stars approach the limit (hydrogen-poor "
+    "stars have a higher L_Edd: set hydrogen_fraction lower for them); luminous blue "
+    "variables in eruption exceed it briefly; an unresolved multiple system's luminosity "
+    "with one component's mass can exceed it.",
+    example="M = 10 Msun gives L_Edd = 3.84e5 Lsun (log 5.58).  A catalogue log L of 6.2 "
+    "+- 0.05 with a 5% mass error is 0.62 dex above, 0.62 / 0.055 = 11 sigma, and is "
+    "flagged; a 40 Msun star at log L 5.9 is 0.29 dex below and is not.",
+    references=(
+        "Eddington (1926), The Internal Constitution of the Stars",
+        "Kippenhahn, Weigert & Weiss (2012), Stellar Structure and Evolution, 2nd ed.",
+        "IAU 2015 Resolution B3; CODATA 2018 (c)",
+    ),
+)
+
+
+def evaluate(batch: StarBatch, params: Params) -> Outcome:
+    """Flag rows whose log L exceeds log L_Edd(M) by more than threshold sigma."""
+    luminosity = batch.values["luminosity"]
+    mass = batch.values["mass"]
+    with np.errstate(divide="ignore", invalid="ignore"):
+        observed = np.log10(luminosity)
+        s_logl = batch.error_or("luminosity", params["assumed_luminosity_dex"] * luminosity
+                                * LN10) / (luminosity * LN10)
+        s_m = batch.error_or("mass", params["assumed_mass_fraction"] * mass) / mass
+    expected = log_eddington_luminosity(mass, params["hydrogen_fraction"])
+    sigma = combined_sigma(s_logl, s_m / LN10, floor=params["floor_dex"])
+    with np.errstate(invalid="ignore"):
+        deviation = (observed - expected) / sigma
+        failed = deviation > params["threshold"]
+
+    def describe(rows: np.ndarray) -> list[str]:
+        return [
+            f"log L = {observed[i]:.2f} dex(Lsun) exceeds the Eddington luminosity "
+            f"{expected[i]:.2f} of M = {mass[i]:.3g} Msun by {observed[i] - expected[i]:.2f} "
+            f"dex, {deviation[i]:.1f} sigma"
+            for i in rows
+        ]
+
+    return Outcome(failed, describe, observed, expected, np.abs(deviation))
+
+
+CHECK = Check(
+    name="eddington_limit",
+    needs=fixed_needs("luminosity", "mass"),
+    evaluate=evaluate,
+    doc=DOC,
+    defaults={
+        "threshold": 3.0,
+        "floor_dex": 0.05,
+        "hydrogen_fraction": 0.7,
+        "assumed_luminosity_dex": 0.1,
+        "assumed_mass_fraction": 0.10,
+    },
+)
