@@ -99,7 +99,6 @@ def run_rules(catalogue: Catalogue, profile: Profile, rules: Sequence[Rule], sin
     runnable = [s for s in stats.rules if s.status == "ran"]
     ranges = [s.rule for s in runnable if s.rule.check.name == "physical_range"]
     schema = RangeSchema(ranges) if ranges else None
-    order = {s.rule.id: i for i, s in enumerate(stats.rules)}
     phases = PhaseLabels(profile.phases)
     stats.rows_by_severity = dict.fromkeys(SEVERITY_RANK, 0)
     stats.flags_by_severity = dict.fromkeys(SEVERITY_RANK, 0)
@@ -113,9 +112,9 @@ def run_rules(catalogue: Catalogue, profile: Profile, rules: Sequence[Rule], sin
             outcome = outcomes.get(rule.id) or rule.check.evaluate(stars, rule.params)
             tables.append(_record(rule_stats, stars, outcome))
         stats.rows += stars.size
-        flags = _merge(tables, order)
+        flags, rank = _merge(tables, [s.rule for s in runnable])
         if flags.num_rows:
-            _count_rows(stats, flags)
+            _count_rows(stats, flags, rank)
             sink(flags)
         if progress:
             progress(stars.size)
@@ -167,19 +166,25 @@ def _assumed_errors(needs: Sequence[str], stars: StarBatch, available: np.ndarra
     return assumed
 
 
-def _merge(tables: list[pa.Table], order: dict[str, int]) -> pa.Table:
+def _merge(tables: list[pa.Table], rules: Sequence[Rule]) -> tuple[pa.Table, np.ndarray]:
+    """One batch's flags sorted by (row, rule order), and the severity rank of each flag.
+
+    ``tables[i]`` holds the flags of ``rules[i]``; rule order and severity are constant per
+    table, so no per-flag Python work is needed.
+    """
     flags = pa.concat_tables(tables)
+    sizes = [t.num_rows for t in tables]
+    rule_order = np.repeat(np.arange(len(tables)), sizes)
+    rank = np.repeat(np.array([SEVERITY_RANK[r.severity] for r in rules], dtype=np.int8),
+                     sizes)
     if flags.num_rows == 0:
-        return flags
-    rule_order = np.array([order[r] for r in flags["rule"].to_pylist()])
-    rows = flags["row"].to_numpy()
-    return flags.take(pa.array(np.lexsort((rule_order, rows))))
+        return flags, rank
+    order = np.lexsort((rule_order, flags["row"].to_numpy()))
+    return flags.take(pa.array(order)), rank[order]
 
 
-def _count_rows(stats: RunStats, flags: pa.Table) -> None:
+def _count_rows(stats: RunStats, flags: pa.Table, rank: np.ndarray) -> None:
     rows = flags["row"].to_numpy()
-    severity = flags["severity"].to_pylist()
-    rank = np.array([SEVERITY_RANK[s] for s in severity], dtype=np.int8)
     unique, inverse = np.unique(rows, return_inverse=True)
     worst = np.full(len(unique), -1, dtype=np.int8)
     np.maximum.at(worst, inverse, rank)

@@ -60,8 +60,9 @@ def test_surface_gravity() -> None:
 
 
 def test_eddington_limit() -> None:
-    ledd_10 = float(log_eddington_luminosity(10.0))
-    assert ledd_10 == pytest.approx(math.log10(3.84e5), abs=0.005)  # 3.84e4 M (computed)
+    assert float(log_eddington_luminosity(10.0, 0.7)) == pytest.approx(
+        math.log10(3.84e5), abs=0.005)  # 3.84e4 M/Msun Lsun for X = 0.7 (computed)
+    ledd_10 = float(log_eddington_luminosity(10.0, 0.0))  # the rule's default, X = 0
     rows = [
         {"luminosity": 3.7, "mass": 10.0},            # a B star
         {"luminosity": ledd_10 - 0.1, "mass": 10.0},  # near the limit: passes

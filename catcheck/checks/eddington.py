@@ -13,17 +13,20 @@ DOC = Documentation(
     why="Above L_Edd radiation pressure on free electrons exceeds gravity and the outer "
     "layers are blown away: no star is stable there.  A row above it usually has a mass in "
     "the wrong unit or a luminosity off by orders of magnitude.",
-    formula="log L_Edd = log(4 pi G M c / kappa), kappa = 0.2 (1 + X) cm^2/g "
-    "(= 3.84e4 M/Msun Lsun for X = 0.7, computed)\n"
+    formula="log L_Edd = log(4 pi G M c / kappa), kappa = 0.2 (1 + X) cm^2/g; the rule "
+    "uses X = hydrogen_fraction = 0 by default, the highest (hydrogen-free) limit: "
+    "6.53e4 M/Msun Lsun (3.84e4 for X = 0.7; computed)\n"
     "sigma^2 = s_logL^2 + (s_M / (M ln10))^2, sigma >= floor_dex\n"
     "flag when log L - log L_Edd > threshold * sigma",
-    caveats="Very massive stars and Wolf-Rayet stars approach the limit (hydrogen-poor "
-    "stars have a higher L_Edd: set hydrogen_fraction lower for them); luminous blue "
+    caveats="Very massive stars approach the limit; once they have lost their hydrogen-rich "
+    "envelopes they exceed the X = 0.7 value (PARSEC v1.2S models of 60-130 Msun do, by up "
+    "to 0.22 dex), which is why the default uses X = 0.  Raising hydrogen_fraction makes "
+    "the rule stricter for hydrogen-rich stars only.  Luminous blue "
     "variables in eruption exceed it briefly; an unresolved multiple system's luminosity "
     "with one component's mass can exceed it.",
-    example="M = 10 Msun gives L_Edd = 3.84e5 Lsun (log 5.58).  A catalogue log L of 6.2 "
-    "+- 0.05 with a 5% mass error is 0.62 dex above, 0.62 / 0.055 = 11 sigma, and is "
-    "flagged; a 40 Msun star at log L 5.9 is 0.29 dex below and is not.",
+    example="M = 10 Msun gives L_Edd = 6.53e5 Lsun (log 5.81, X = 0).  A catalogue log L of "
+    "6.4 +- 0.05 with a 5% mass error is 0.59 dex above, 0.59 / 0.055 = 11 sigma, and is "
+    "flagged; a 40 Msun star at log L 5.9 is 0.52 dex below and is not.",
     references=(
         "Eddington (1926), The Internal Constitution of the Stars",
         "Kippenhahn, Weigert & Weiss (2012), Stellar Structure and Evolution, 2nd ed.",
@@ -66,7 +69,7 @@ CHECK = Check(
     defaults={
         "threshold": 3.0,
         "floor_dex": 0.05,
-        "hydrogen_fraction": 0.7,
+        "hydrogen_fraction": 0.0,
         "assumed_luminosity_dex": 0.1,
         "assumed_mass_fraction": 0.10,
     },
