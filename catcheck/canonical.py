@@ -32,6 +32,7 @@ class StarBatch:
     phase: np.ndarray | None = None
     text: dict[str, pa.Array] = field(default_factory=dict)
     groups: pa.Array | None = None
+    _missing_errors: dict[str, np.ndarray] = field(default_factory=dict, repr=False)
 
     def __len__(self) -> int:
         return self.size
@@ -44,6 +45,12 @@ class StarBatch:
             return self.text[quantity].is_valid().to_numpy(zero_copy_only=False)
         return ~np.isnan(self.values[quantity])
 
+    def missing_error(self, quantity: str) -> np.ndarray:
+        """Rows where the catalogue's 1-sigma of ``quantity`` is missing (computed once)."""
+        if quantity not in self._missing_errors:
+            self._missing_errors[quantity] = np.isnan(self.errors[quantity])
+        return self._missing_errors[quantity]
+
     def error_or(self, quantity: str, default: np.ndarray | float) -> np.ndarray:
         """The catalogue's 1-sigma for ``quantity`` where given, else ``default``.
 
@@ -53,7 +60,8 @@ class StarBatch:
         default = np.broadcast_to(np.asarray(default, dtype=float), (self.size,))
         if given is None:
             return default
-        return np.where(np.isnan(given), default, given)
+        missing = self.missing_error(quantity)
+        return np.where(missing, default, given) if missing.any() else given
 
     def environment(self) -> dict[str, np.ndarray]:
         """Values by quantity name, phase codes included, for the expression language."""

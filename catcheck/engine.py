@@ -23,6 +23,7 @@ from catcheck.checks.base import Outcome
 from catcheck.checks.physical_range import RangeSchema
 from catcheck.flags import flag_records
 from catcheck.packs import SEVERITY_RANK, Rule
+from catcheck.prefetch import prefetch
 from catcheck.profile import Profile
 from catcheck.quantities import QUANTITIES
 
@@ -103,8 +104,9 @@ def run_rules(catalogue: Catalogue, profile: Profile, rules: Sequence[Rule], sin
     stats.rows_by_severity = dict.fromkeys(SEVERITY_RANK, 0)
     stats.flags_by_severity = dict.fromkeys(SEVERITY_RANK, 0)
 
-    for first_row, batch in catalogue.batches(profile.columns, batch_rows):
-        stars = canonical_batch(profile, batch, first_row, phases)
+    converted = (canonical_batch(profile, batch, first_row, phases)
+                 for first_row, batch in catalogue.batches(profile.columns, batch_rows))
+    for stars in prefetch(converted):
         outcomes = schema.validate(stars) if schema else {}
         tables = []
         for rule_stats in runnable:
@@ -160,8 +162,7 @@ def _assumed_errors(needs: Sequence[str], stars: StarBatch, available: np.ndarra
     for quantity in needs:
         if not QUANTITIES[quantity].numeric:
             continue
-        errors = stars.errors.get(quantity)
-        if errors is None or np.isnan(errors[available]).any():
+        if quantity not in stars.errors or (stars.missing_error(quantity) & available).any():
             assumed.append(quantity)
     return assumed
 

@@ -103,7 +103,7 @@ class ParquetCatalogue:
         first_row = 0
         for path in self.files:
             try:
-                reader = pq.ParquetFile(path)
+                reader = pq.ParquetFile(path, pre_buffer=False)
                 for batch in reader.iter_batches(batch_size=batch_rows, columns=list(columns)):
                     yield first_row, batch
                     first_row += batch.num_rows

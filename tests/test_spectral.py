@@ -217,6 +217,27 @@ def test_giant_and_supergiant_scales_take_dwarf_values_for_early_types() -> None
     assert np.isnan(teff_scale("giant").log_teff_at(parse_mk("M9").index))
 
 
+def test_scales_interpolate_in_log_teff() -> None:
+    """G2/3V lies halfway between G2V 5770 K and G3V 5720 K (Pecaut & Mamajek 2013
+    v2022.04.16) in log Teff: their geometric mean."""
+    teff = 10 ** teff_scale("dwarf").log_teff_at(parse_mk("G2/3V").index)
+    assert teff == pytest.approx(math.sqrt(5770.0 * 5720.0), rel=1e-12)
+
+
+def test_type_teff_bands_follow_the_luminosity_group() -> None:
+    """Rows: dwarf, giant, supergiant scale.  A dwarf uses the first only, a star without
+    class the dwarf and giant scales; a subdwarf or a NaN index none."""
+    types = [parse_mk(t) for t in ("K5V", "K5", "K5III", "M2Iab", "sdM2", "K")]
+    bands = spectral.type_teff_bands([t.index for t in types], [t.group for t in types],
+                                     0.5)
+    used = np.isfinite(bands.centre)
+    assert used.T.tolist() == [[True, False, False], [True, True, False],
+                               [False, True, False], [False, False, True],
+                               [False, False, False], [False, False, False]]
+    assert (bands.cool[used] < bands.centre[used]).all()
+    assert (bands.centre[used] < bands.hot[used]).all()
+
+
 @pytest.fixture(scope="module")
 def dwarfs() -> pd.DataFrame:
     """The mean dwarf sequence, O3V..Y4V (118 rows), Pecaut & Mamajek 2013 v2022.04.16."""
@@ -373,6 +394,12 @@ def test_types_no_scale_serves_are_not_applicable() -> None:
     assert not outcome.applies.any()
     assert not outcome.failed.any()
     assert np.isnan(outcome.expected).all() and np.isnan(outcome.deviation).all()
+
+
+def test_empty_and_all_null_batches() -> None:
+    assert evaluate([], []).failed.size == 0
+    outcome = evaluate([None, None], [5000.0, 6000.0])
+    assert not outcome.applies.any() and not outcome.failed.any()
 
 
 def test_impossible_teff_is_not_applicable() -> None:

@@ -8,6 +8,7 @@ from catcheck.checks import (
     ms_mass_luminosity,
     parallax_distance,
     physical_range,
+    spectral_type_teff,
     stefan_boltzmann,
     surface_gravity,
 )
@@ -24,5 +25,6 @@ CHECKS: dict[str, Check] = {
         mass_limits.HYDROGEN_BURNING,
         mass_limits.CHANDRASEKHAR,
         parallax_distance.CHECK,
+        spectral_type_teff.CHECK,
     )
 }

@@ -95,7 +95,18 @@ def phase_is(batch: StarBatch, *codes: str) -> np.ndarray:
 
     if batch.phase is None:
         return np.zeros(batch.size, dtype=bool)
+    if len(codes) == 1:
+        return batch.phase == PHASE_INDEX[codes[0]]
     return np.isin(batch.phase, [PHASE_INDEX[c] for c in codes])
+
+
+def at_rows(rows: np.ndarray, *arrays: np.ndarray) -> zip:
+    """The values of each array at ``rows`` as Python floats, zipped row by row.
+
+    Formatting Python floats is several times faster than numpy scalars, and messages are
+    built for every flag.
+    """
+    return zip(*(np.asarray(a, dtype=float)[rows].tolist() for a in arrays), strict=True)
 
 
 def fmt(value: float) -> str:

@@ -5,7 +5,15 @@ from __future__ import annotations
 import numpy as np
 
 from catcheck.canonical import StarBatch
-from catcheck.checks.base import Check, Documentation, Outcome, Params, combined_sigma, fixed_needs
+from catcheck.checks.base import (
+    Check,
+    Documentation,
+    Outcome,
+    Params,
+    at_rows,
+    combined_sigma,
+    fixed_needs,
+)
 from catcheck.physics.stellar import LN10, log_eddington_luminosity
 
 DOC = Documentation(
@@ -52,10 +60,9 @@ def evaluate(batch: StarBatch, params: Params) -> Outcome:
 
     def describe(rows: np.ndarray) -> list[str]:
         return [
-            f"log L = {observed[i]:.2f} dex(Lsun) exceeds the Eddington luminosity "
-            f"{expected[i]:.2f} of M = {mass[i]:.3g} Msun by {observed[i] - expected[i]:.2f} "
-            f"dex, {deviation[i]:.1f} sigma"
-            for i in rows
+            f"log L = {o:.2f} dex(Lsun) exceeds the Eddington luminosity {e:.2f} of "
+            f"M = {m:.3g} Msun by {o - e:.2f} dex, {d:.1f} sigma"
+            for o, e, m, d in at_rows(rows, observed, expected, mass, deviation)
         ]
 
     return Outcome(failed, describe, observed, expected, np.abs(deviation))

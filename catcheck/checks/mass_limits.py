@@ -10,6 +10,7 @@ from catcheck.checks.base import (
     Documentation,
     Outcome,
     Params,
+    at_rows,
     excess_sigma,
     fixed_needs,
     phase_is,
@@ -68,9 +69,9 @@ def _mass_outside(batch: StarBatch, params: Params, phase: str, low: np.ndarray 
 
     def describe(rows: np.ndarray) -> list[str]:
         return [
-            f"{phase} star of M = {mass[i]:.3g} +- {sigma[i]:.2g} Msun is {side} the limit "
-            f"{limit[i]:.3g} Msun by {deviation[i]:.1f} sigma"
-            for i in rows
+            f"{phase} star of M = {m:.3g} +- {s:.2g} Msun is {side} the limit {lim:.3g} Msun "
+            f"by {d:.1f} sigma"
+            for m, s, lim, d in at_rows(rows, mass, sigma, limit, deviation)
         ]
 
     return Outcome(failed, describe, mass, limit.copy(), deviation, applies)

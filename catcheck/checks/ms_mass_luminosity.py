@@ -10,12 +10,13 @@ from catcheck.checks.base import (
     Documentation,
     Outcome,
     Params,
+    at_rows,
     combined_sigma,
     excess_sigma,
     fixed_needs,
     phase_is,
 )
-from catcheck.physics.main_sequence import eker2018_log_luminosity, eker2018_slope
+from catcheck.physics.main_sequence import eker2018_log_luminosity_and_slope
 from catcheck.physics.stellar import LN10
 
 DOC = Documentation(
@@ -56,11 +57,11 @@ def evaluate(batch: StarBatch, params: Params) -> Outcome:
         mass <= params["max_mass"])
     with np.errstate(divide="ignore", invalid="ignore"):
         observed = np.log10(luminosity)
-        expected = eker2018_log_luminosity(mass)
+        expected, slope = eker2018_log_luminosity_and_slope(mass)
         s_logl = batch.error_or("luminosity", params["assumed_luminosity_dex"] * luminosity
                                 * LN10) / (luminosity * LN10)
         s_m = batch.error_or("mass", params["assumed_mass_fraction"] * mass) / mass
-    sigma = combined_sigma(s_logl, eker2018_slope(mass) * s_m / LN10, params["intrinsic_dex"])
+    sigma = combined_sigma(s_logl, slope * s_m / LN10, params["intrinsic_dex"])
     low = expected - params["band_below_dex"]
     high = expected + params["band_above_dex"]
     deviation = excess_sigma(observed, sigma, low, high)
@@ -69,12 +70,12 @@ def evaluate(batch: StarBatch, params: Params) -> Outcome:
 
     def describe(rows: np.ndarray) -> list[str]:
         messages = []
-        for i in rows:
-            side, edge = ("above", high[i]) if observed[i] > high[i] else ("below", low[i])
+        for m, o, lo, hi, d in at_rows(rows, mass, observed, low, high, deviation):
+            side, edge = ("above", hi) if o > hi else ("below", lo)
             messages.append(
-                f"MS star of M = {mass[i]:.3g} Msun has log L = {observed[i]:.2f} dex(Lsun), "
-                f"{side} the main-sequence band {low[i]:.2f}..{high[i]:.2f} by "
-                f"{abs(observed[i] - edge):.2f} dex, {deviation[i]:.1f} sigma"
+                f"MS star of M = {m:.3g} Msun has log L = {o:.2f} dex(Lsun), {side} the "
+                f"main-sequence band {lo:.2f}..{hi:.2f} by {abs(o - edge):.2f} dex, "
+                f"{d:.1f} sigma"
             )
         return messages
 

@@ -5,7 +5,15 @@ from __future__ import annotations
 import numpy as np
 
 from catcheck.canonical import StarBatch
-from catcheck.checks.base import Check, Documentation, Outcome, Params, combined_sigma, fixed_needs
+from catcheck.checks.base import (
+    Check,
+    Documentation,
+    Outcome,
+    Params,
+    at_rows,
+    combined_sigma,
+    fixed_needs,
+)
 from catcheck.physics.stellar import distance_from_parallax
 
 DOC = Documentation(
@@ -48,10 +56,10 @@ def evaluate(batch: StarBatch, params: Params) -> Outcome:
 
     def describe(rows: np.ndarray) -> list[str]:
         return [
-            f"distance {distance[i]:.4g} pc but parallax {parallax[i]:.4g} +- "
-            f"{s_plx_cat[i]:.2g} mas gives {expected[i]:.4g} pc: {deviation[i]:.1f} sigma "
-            f"(sigma {sigma[i]:.3g} pc)"
-            for i in rows
+            f"distance {d:.4g} pc but parallax {p:.4g} +- {sp:.2g} mas gives {e:.4g} pc: "
+            f"{z:.1f} sigma (sigma {s:.3g} pc)"
+            for d, p, sp, e, z, s in at_rows(rows, distance, parallax, s_plx_cat, expected,
+                                             deviation, sigma)
         ]
 
     return Outcome(failed, describe, distance, expected, deviation, applies)

@@ -2,11 +2,21 @@
 
 from __future__ import annotations
 
+from functools import cache
+
 import numpy as np
 import pyarrow as pa
 
 from catcheck.canonical import StarBatch
-from catcheck.checks.base import Check, Documentation, Outcome, Params, combined_sigma, fixed_needs
+from catcheck.checks.base import (
+    Check,
+    Documentation,
+    Outcome,
+    Params,
+    combined_sigma,
+    excess_sigma,
+    fixed_needs,
+)
 from catcheck.physics.spectral import (
     SCALE_NAMES,
     SCALES_FOR_GROUP,
@@ -38,8 +48,8 @@ DOC = Documentation(
     "the catalogue's error or assumed_teff_fraction * Teff; scatter_s is dwarf_scatter_dex, "
     "giant_scatter_dex or supergiant_scatter_dex\n"
     "deviation = min over the scales of the luminosity group of excess_s / sigma_s; flag when "
-    "deviation > threshold. Scales: V -> dwarf; IV, III-IV and no class -> dwarf or giant; "
-    "II-III -> giant; I -> supergiant.\n"
+    "deviation > threshold. Scales: IV-V, V -> dwarf; III-IV, IV and no class -> dwarf or "
+    "giant; II, II-III, III -> giant; 0, Ia+, Ia, Iab, Ib, I-II -> supergiant.\n"
     "Not applicable (counted as skipped, never flagged): unparseable strings, types without "
     "a subtype, white dwarfs, Wolf-Rayet, carbon (C, R, N) and S stars, chemically peculiar "
     "(Am notation such as kA2hA5mA7V, suffixes m, p, Si, Sr, Cr, Eu, Hg, He), composite "
@@ -89,6 +99,15 @@ _GROUP_TEXT = {
 }
 
 
+@cache
+def _which(scale_position: int, group: int) -> str:
+    """Names the scale a row was compared with, for its message."""
+    label = teff_scale(SCALE_NAMES[scale_position]).label
+    if len(SCALES_FOR_GROUP[LuminosityGroup(group)]) > 1:
+        return f"the closer of the dwarf and giant scales, the {label},"
+    return f"the {label}"
+
+
 def evaluate(batch: StarBatch, params: Params) -> Outcome:
     """Flag rows whose Teff lies > threshold sigma outside the band of their type's scale."""
     teff = batch.values["teff"]
@@ -107,10 +126,10 @@ def evaluate(batch: StarBatch, params: Params) -> Outcome:
     cool_by_scale, hot_by_scale = types.rows(bands.cool), types.rows(bands.hot)
     scatter = np.array([[params[f"{name}_scatter_dex"]] for name in SCALE_NAMES])
     sigma_by_scale = combined_sigma(s_teff, scatter, floor=params["floor_dex"])
-    with np.errstate(invalid="ignore"):
-        excess = np.maximum(np.maximum(cool_by_scale - log_teff, log_teff - hot_by_scale), 0.0)
-        deviation_by_scale = np.where(np.isnan(excess), np.inf, excess / sigma_by_scale)
-    # the scale the row fits best (argmin over scales; all-inf rows fit none)
+    deviation_by_scale = excess_sigma(np.broadcast_to(log_teff, cool_by_scale.shape),
+                                      sigma_by_scale, cool_by_scale, hot_by_scale)
+    deviation_by_scale[np.isnan(cool_by_scale) | np.isnan(deviation_by_scale)] = np.inf
+    # the scale the row fits best (argmin over scales; rows at inf on all scales fit none)
     chosen = np.argmin(deviation_by_scale, axis=0)
 
     def pick(by_scale: np.ndarray) -> np.ndarray:
@@ -127,22 +146,21 @@ def evaluate(batch: StarBatch, params: Params) -> Outcome:
     row_group = types.rows(group)
 
     def describe(rows: np.ndarray) -> list[str]:
+        rows = np.asarray(rows, dtype=np.intp)
         labels = spectral.take(pa.array(rows, type=pa.int64())).to_pylist()
-        messages = []
-        for label, i in zip(labels, rows, strict=True):
-            scale = teff_scale(SCALE_NAMES[chosen[i]])
-            group_i = LuminosityGroup(row_group[i])
-            which = (f"the closer of the dwarf and giant scales, the {scale.label},"
-                     if len(SCALES_FOR_GROUP[group_i]) > 1 else f"the {scale.label}")
-            off = cool[i] - log_teff[i] if log_teff[i] < cool[i] else log_teff[i] - hot[i]
-            side = "cooler" if log_teff[i] < cool[i] else "hotter"
-            messages.append(
-                f"{label} ({_GROUP_TEXT[group_i]}): Teff {teff[i]:.0f} K, but {which} gives "
-                f"{expected[i]:.0f} K for this type ({10 ** cool[i]:.0f}-{10 ** hot[i]:.0f} "
-                f"K within {row_half_width[i]:g} subtype); {off:.2f} dex {side}, "
-                f"{deviation[i]:.1f} sigma (sigma {sigma[i]:.3f} dex)"
-            )
-        return messages
+        # plain Python values: formatting them is much faster than numpy scalars
+        columns = (teff, expected, 10.0**cool, 10.0**hot, log_teff - hot, cool - log_teff,
+                   deviation, sigma, row_half_width)
+        values = zip(*(np.asarray(c, dtype=float)[rows].tolist() for c in columns),
+                     chosen[rows].tolist(), row_group[rows].tolist(), strict=True)
+        return [
+            f"{label} ({_GROUP_TEXT[group_k]}): Teff {t:.0f} K, but {_which(scale_k, group_k)} "
+            f"gives {e:.0f} K for this type ({lo:.0f}-{hi:.0f} K within {w:g} subtype); "
+            f"{max(above, below):.2f} dex {'hotter' if above > 0 else 'cooler'}, "
+            f"{dev:.1f} sigma (sigma {s:.3f} dex)"
+            for label, (t, e, lo, hi, above, below, dev, s, w, scale_k, group_k)
+            in zip(labels, values, strict=True)
+        ]
 
     return Outcome(failed, describe, teff, expected, deviation, applies)
 

@@ -5,7 +5,15 @@ from __future__ import annotations
 import numpy as np
 
 from catcheck.canonical import StarBatch
-from catcheck.checks.base import Check, Documentation, Outcome, Params, combined_sigma, fixed_needs
+from catcheck.checks.base import (
+    Check,
+    Documentation,
+    Outcome,
+    Params,
+    at_rows,
+    combined_sigma,
+    fixed_needs,
+)
 from catcheck.physics.stellar import LN10, log_luminosity_stefan_boltzmann
 
 DOC = Documentation(
@@ -54,11 +62,10 @@ def evaluate(batch: StarBatch, params: Params) -> Outcome:
 
     def describe(rows: np.ndarray) -> list[str]:
         return [
-            f"log L = {observed[i]:.2f} dex(Lsun) but R = {radius[i]:.3g} Rsun and "
-            f"Teff = {teff[i]:.0f} K give {expected[i]:.2f}: off by "
-            f"{observed[i] - expected[i]:+.2f} dex, {deviation[i]:.1f} sigma "
-            f"(sigma {sigma[i]:.3f} dex)"
-            for i in rows
+            f"log L = {o:.2f} dex(Lsun) but R = {r:.3g} Rsun and Teff = {t:.0f} K give "
+            f"{e:.2f}: off by {o - e:+.2f} dex, {d:.1f} sigma (sigma {s:.3f} dex)"
+            for o, r, t, e, d, s in at_rows(rows, observed, radius, teff, expected, deviation,
+                                            sigma)
         ]
 
     return Outcome(failed, describe, observed, expected, deviation)

@@ -5,7 +5,15 @@ from __future__ import annotations
 import numpy as np
 
 from catcheck.canonical import StarBatch
-from catcheck.checks.base import Check, Documentation, Outcome, Params, combined_sigma, fixed_needs
+from catcheck.checks.base import (
+    Check,
+    Documentation,
+    Outcome,
+    Params,
+    at_rows,
+    combined_sigma,
+    fixed_needs,
+)
 from catcheck.physics.stellar import LN10, log_surface_gravity
 
 DOC = Documentation(
@@ -50,10 +58,10 @@ def evaluate(batch: StarBatch, params: Params) -> Outcome:
 
     def describe(rows: np.ndarray) -> list[str]:
         return [
-            f"log g = {logg[i]:.2f} but M = {mass[i]:.3g} Msun and R = {radius[i]:.3g} Rsun "
-            f"give {expected[i]:.2f} dex(cm/s2): off by {logg[i] - expected[i]:+.2f} dex, "
-            f"{deviation[i]:.1f} sigma (sigma {sigma[i]:.3f} dex)"
-            for i in rows
+            f"log g = {g:.2f} but M = {m:.3g} Msun and R = {r:.3g} Rsun give {e:.2f} "
+            f"dex(cm/s2): off by {g - e:+.2f} dex, {d:.1f} sigma (sigma {s:.3f} dex)"
+            for g, m, r, e, d, s in at_rows(rows, logg, mass, radius, expected, deviation,
+                                            sigma)
         ]
 
     return Outcome(failed, describe, logg, expected, deviation)

@@ -46,3 +46,12 @@ def eker2018_log_luminosity(mass: ArrayLike) -> FloatArray:
 def eker2018_slope(mass: ArrayLike) -> FloatArray:
     """d log L / d log M of :func:`eker2018_log_luminosity` at each mass (the piece's slope)."""
     return _EKER_SLOPES[_eker2018_piece(np.asarray(mass, dtype=float))]
+
+
+def eker2018_log_luminosity_and_slope(mass: ArrayLike) -> tuple[FloatArray, FloatArray]:
+    """:func:`eker2018_log_luminosity` and :func:`eker2018_slope` in one pass."""
+    mass = np.asarray(mass, dtype=float)
+    piece = _eker2018_piece(mass)
+    slope = _EKER_SLOPES[piece]
+    with np.errstate(divide="ignore", invalid="ignore"):
+        return slope * np.log10(mass) + _EKER_ZEROS[piece], slope
