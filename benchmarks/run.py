@@ -36,7 +36,7 @@ def case_scan(catalogue: Path, profile: Path, batch_rows: int) -> None:
 
     columns = load_profile(profile).columns
     rows = 0
-    for batch in pq.ParquetFile(catalogue).iter_batches(batch_size=batch_rows,
+    for batch in pq.ParquetFile(catalogue, pre_buffer=False).iter_batches(batch_size=batch_rows,
                                                         columns=columns):
         rows += batch.num_rows
     assert rows > 0

@@ -74,43 +74,45 @@ def check(catalogue: PathLike | Sequence[PathLike], profile: PathLike | Profile,
           rules: Sequence[PathLike] = DEFAULT_PACKS, *, out: PathLike | None = None,
           fail_on: str = "error", max_flagged_fraction: float | None = None,
           flags_format: str = "parquet", batch_rows: int = DEFAULT_BATCH_ROWS,
-          progress: Callable[[int], None] | None = None) -> CheckResult:
+          workers: int = 1, progress: Callable[[int], None] | None = None) -> CheckResult:
     """Check a Parquet catalogue (file, directory, glob or list of them).
 
     With ``out``, the report (flags, summary.json, report.md) is written there atomically;
-    without it, everything stays in memory.
+    without it, everything stays in memory.  ``workers`` batches are checked at once.
     """
     sources = [catalogue] if isinstance(catalogue, str | Path) else list(catalogue)
     return _run(ParquetCatalogue.open(sources), profile, rules, out, fail_on,
-                max_flagged_fraction, flags_format, batch_rows, progress)
+                max_flagged_fraction, flags_format, batch_rows, workers, progress)
 
 
 def check_frame(frame: pd.DataFrame, profile: PathLike | Profile,
                 rules: Sequence[PathLike] = DEFAULT_PACKS, *, out: PathLike | None = None,
                 fail_on: str = "error", max_flagged_fraction: float | None = None,
-                batch_rows: int = DEFAULT_BATCH_ROWS) -> CheckResult:
+                batch_rows: int = DEFAULT_BATCH_ROWS, workers: int = 1) -> CheckResult:
     """Check an in-memory pandas DataFrame; rows are numbered by position."""
     table = pa.Table.from_pandas(frame, preserve_index=False)
     return _run(TableCatalogue(table), profile, rules, out, fail_on, max_flagged_fraction,
-                "parquet", batch_rows, None)
+                "parquet", batch_rows, workers, None)
 
 
 def _run(catalogue: Catalogue, profile: PathLike | Profile, rules: Sequence[PathLike],
          out: PathLike | None, fail_on: str, max_flagged_fraction: float | None,
-         flags_format: str, batch_rows: int, progress: Callable[[int], None] | None
-         ) -> CheckResult:
+         flags_format: str, batch_rows: int, workers: int,
+         progress: Callable[[int], None] | None) -> CheckResult:
     started = time.perf_counter()
     gate = Gate(fail_on, max_flagged_fraction)
     profile = profile if isinstance(profile, Profile) else load_profile(profile)
     loaded = load_rules(rules)
     if out is None:
         collected: list[pa.Table] = []
-        stats = run_rules(catalogue, profile, loaded, collected.append, batch_rows, progress)
+        stats = run_rules(catalogue, profile, loaded, collected.append, batch_rows, progress,
+                          workers)
         flags = pa.concat_tables([FLAG_SCHEMA.empty_table(), *collected])
         summary = _summary(catalogue, profile, rules, stats, gate, started)
         return CheckResult(summary, flags)
     with ReportDirectory(out, flags_format) as report:
-        stats = run_rules(catalogue, profile, loaded, report.add_flags, batch_rows, progress)
+        stats = run_rules(catalogue, profile, loaded, report.add_flags, batch_rows, progress,
+                          workers)
         summary = _summary(catalogue, profile, rules, stats, gate, started)
         report.write_json("summary.json", summary)
         examples = {s.rule.id: s.examples for s in stats.rules}

@@ -3,7 +3,7 @@
 from __future__ import annotations
 
 from collections import Counter
-from collections.abc import Mapping
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -33,17 +33,29 @@ class StarBatch:
     text: dict[str, pa.Array] = field(default_factory=dict)
     groups: pa.Array | None = None
     _missing_errors: dict[str, np.ndarray] = field(default_factory=dict, repr=False)
+    _has: dict[str, np.ndarray] = field(default_factory=dict, repr=False)
 
     def __len__(self) -> int:
         return self.size
 
     def has(self, quantity: str) -> np.ndarray:
-        """Rows where ``quantity`` has a usable value (not null, not NaN)."""
-        if quantity == "phase":
-            return self.phase != NO_PHASE
-        if quantity in self.text:
-            return self.text[quantity].is_valid().to_numpy(zero_copy_only=False)
-        return ~np.isnan(self.values[quantity])
+        """Rows where ``quantity`` has a usable value (not null, not NaN); computed once."""
+        if quantity not in self._has:
+            if quantity == "phase":
+                present = self.phase != NO_PHASE
+            elif quantity in self.text:
+                present = self.text[quantity].is_valid().to_numpy(zero_copy_only=False)
+            else:
+                present = ~np.isnan(self.values[quantity])
+            self._has[quantity] = present
+        return self._has[quantity]
+
+    def has_all(self, quantities: Sequence[str]) -> np.ndarray:
+        """Rows where every one of ``quantities`` has a usable value (a new array)."""
+        present = np.ones(self.size, dtype=bool)
+        for quantity in quantities:
+            present &= self.has(quantity)
+        return present
 
     def missing_error(self, quantity: str) -> np.ndarray:
         """Rows where the catalogue's 1-sigma of ``quantity`` is missing (computed once)."""

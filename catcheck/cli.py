@@ -47,10 +47,12 @@ def cli() -> None:
               type=click.Choice(["parquet", "csv", "jsonl"]), help="Format of the flags file.")
 @click.option("--batch-rows", default=262_144, show_default=True,
               type=click.IntRange(1_000, 50_000_000), help="Rows per record batch.")
+@click.option("--workers", default=1, show_default=True, type=click.IntRange(1, 64),
+              help="Batches checked at once (threads).")
 @click.option("--quiet", is_flag=True, help="Print only the verdict line.")
 def check(catalogue: tuple[str, ...], profile_path: str, packs: tuple[str, ...], out: str,
           fail_on: str, max_flagged_fraction: float | None, flags_format: str,
-          batch_rows: int, quiet: bool) -> None:
+          batch_rows: int, workers: int, quiet: bool) -> None:
     """Check CATALOGUE (Parquet files, directories or globs) and write a report."""
     from catcheck.api import check as run_check
     from catcheck.packs import DEFAULT_PACKS
@@ -58,7 +60,7 @@ def check(catalogue: tuple[str, ...], profile_path: str, packs: tuple[str, ...],
 
     result = run_check(list(catalogue), profile_path, list(packs) or list(DEFAULT_PACKS),
                        out=out, fail_on=fail_on, max_flagged_fraction=max_flagged_fraction,
-                       flags_format=flags_format, batch_rows=batch_rows)
+                       flags_format=flags_format, batch_rows=batch_rows, workers=workers)
     text = console_summary(result.summary)
     click.echo(text.splitlines()[-1].strip() if quiet else text)
     if not quiet:

@@ -17,13 +17,14 @@ from typing import Any, Protocol
 
 import numpy as np
 import pyarrow as pa
+import pyarrow.compute as pc
 
 from catcheck.canonical import PhaseLabels, StarBatch, canonical_batch
 from catcheck.checks.base import Outcome
 from catcheck.checks.physical_range import RangeSchema
 from catcheck.flags import flag_records
 from catcheck.packs import SEVERITY_RANK, Rule
-from catcheck.prefetch import prefetch
+from catcheck.prefetch import ordered_map, prefetch
 from catcheck.profile import Profile
 from catcheck.quantities import QUANTITIES
 
@@ -58,6 +59,18 @@ class RuleStats:
     assumed_errors: set[str] = field(default_factory=set)
     examples: list[dict[str, Any]] = field(default_factory=list)
 
+    def add(self, tally: RuleTally, flags: pa.Table | None) -> None:
+        """Add one batch's counts; keep the first few flags as examples."""
+        self.checked += tally.checked
+        self.skipped += tally.skipped
+        self.not_applicable += tally.not_applicable
+        self.flagged += tally.flagged
+        self.assumed_errors.update(tally.assumed_errors)
+        room = EXAMPLES_PER_RULE - len(self.examples)
+        if room > 0 and tally.flagged and flags is not None:
+            mine = flags.filter(pc.equal(flags["rule"], self.rule.id))
+            self.examples.extend(mine.slice(0, room).to_pylist())
+
     def as_dict(self) -> dict[str, Any]:
         """The rule's entry in summary.json."""
         entry: dict[str, Any] = {
@@ -91,35 +104,55 @@ class RunStats:
 FlagSink = Callable[[pa.Table], None]
 
 
+@dataclass
+class RuleTally:
+    """One rule's counts on one batch."""
+
+    checked: int
+    skipped: int
+    not_applicable: int
+    flagged: int
+    assumed_errors: list[str]
+
+
+@dataclass
+class BatchResult:
+    """Everything one batch contributes: counts per rule and its sorted flag records."""
+
+    rows: int
+    tallies: list[RuleTally]
+    flags: pa.Table | None = None
+    rank: np.ndarray | None = None
+
+
 def run_rules(catalogue: Catalogue, profile: Profile, rules: Sequence[Rule], sink: FlagSink,
-              batch_rows: int, progress: Callable[[int], None] | None = None) -> RunStats:
-    """Check every row of ``catalogue`` against ``rules``; flags go to ``sink``."""
+              batch_rows: int, progress: Callable[[int], None] | None = None,
+              workers: int = 1) -> RunStats:
+    """Check every row of ``catalogue`` against ``rules``; flags go to ``sink`` in row order.
+
+    With ``workers`` > 1, that many batches are checked at once in threads (numpy and
+    Arrow release the GIL for their array work); results are still taken in order.
+    """
     profile.validate_columns(catalogue.schema, catalogue.description)
     catalogue.check_columns(profile.columns)
     stats = RunStats(rules=[_prepare(rule, profile) for rule in rules])
     runnable = [s for s in stats.rules if s.status == "ran"]
-    ranges = [s.rule for s in runnable if s.rule.check.name == "physical_range"]
-    schema = RangeSchema(ranges) if ranges else None
+    checker = BatchChecker([s.rule for s in runnable])
     phases = PhaseLabels(profile.phases)
     stats.rows_by_severity = dict.fromkeys(SEVERITY_RANK, 0)
     stats.flags_by_severity = dict.fromkeys(SEVERITY_RANK, 0)
 
     converted = (canonical_batch(profile, batch, first_row, phases)
                  for first_row, batch in catalogue.batches(profile.columns, batch_rows))
-    for stars in prefetch(converted):
-        outcomes = schema.validate(stars) if schema else {}
-        tables = []
-        for rule_stats in runnable:
-            rule = rule_stats.rule
-            outcome = outcomes.get(rule.id) or rule.check.evaluate(stars, rule.params)
-            tables.append(_record(rule_stats, stars, outcome))
-        stats.rows += stars.size
-        flags, rank = _merge(tables, [s.rule for s in runnable])
-        if flags.num_rows:
-            _count_rows(stats, flags, rank)
-            sink(flags)
+    for result in ordered_map(checker.check, prefetch(converted), workers):
+        stats.rows += result.rows
+        for rule_stats, tally in zip(runnable, result.tallies, strict=True):
+            rule_stats.add(tally, result.flags)
+        if result.flags is not None:
+            _count_rows(stats, result.flags, result.rank)
+            sink(result.flags)
         if progress:
-            progress(stars.size)
+            progress(result.rows)
     stats.unmapped_phase_labels = dict(sorted(phases.unmapped.items()))
     return stats
 
@@ -132,27 +165,48 @@ def _prepare(rule: Rule, profile: Profile) -> RuleStats:
     return stats
 
 
-def _record(stats: RuleStats, stars: StarBatch, outcome: Outcome) -> pa.Table:
-    available = np.ones(stars.size, dtype=bool)
-    for quantity in stats.rule.needs:
-        available &= stars.has(quantity)
+class BatchChecker:
+    """Checks one batch against a fixed list of rules; safe to call from several threads."""
+
+    def __init__(self, rules: Sequence[Rule]) -> None:
+        self.rules = list(rules)
+        ranges = [r for r in self.rules if r.check.name == "physical_range"]
+        self.schema = RangeSchema(ranges) if ranges else None
+
+    def check(self, stars: StarBatch) -> BatchResult:
+        """Counts per rule and the batch's flags sorted by (row, rule order)."""
+        outcomes = self.schema.validate(stars) if self.schema else {}
+        tallies, tables, flagging = [], [], []
+        for rule in self.rules:
+            outcome = outcomes.get(rule.id) or rule.check.evaluate(stars, rule.params)
+            tally, table = _tally(rule, stars, outcome)
+            tallies.append(tally)
+            if table is not None:
+                tables.append(table)
+                flagging.append(rule)
+        result = BatchResult(stars.size, tallies)
+        if tables:
+            result.flags, result.rank = _merge(tables, flagging)
+        return result
+
+
+def _tally(rule: Rule, stars: StarBatch, outcome: Outcome) -> tuple[RuleTally, pa.Table | None]:
+    """One rule's counts on a batch, and its flag records (None if it flagged no row)."""
+    available = stars.has_all(rule.needs)
+    not_applicable = 0
     if outcome.applies is not None:
-        stats.not_applicable += int((available & ~outcome.applies).sum())
+        not_applicable = int((available & ~outcome.applies).sum())
         available &= outcome.applies
     checked = int(available.sum())
-    stats.checked += checked
-    stats.skipped += stars.size - checked
-    if stats.rule.check.uses_errors:
-        stats.assumed_errors.update(_assumed_errors(stats.rule.needs, stars, available))
+    assumed = _assumed_errors(rule.needs, stars, available) if rule.check.uses_errors else []
     positions = np.flatnonzero(outcome.failed & available)
-    stats.flagged += len(positions)
-    table = flag_records(stats.rule.id, stats.rule.severity, stars.first_row, positions,
-                         stars.ids, outcome.describe(positions), outcome.observed,
-                         outcome.expected, outcome.deviation)
-    room = EXAMPLES_PER_RULE - len(stats.examples)
-    if room > 0 and table.num_rows:
-        stats.examples.extend(table.slice(0, room).to_pylist())
-    return table
+    tally = RuleTally(checked, stars.size - checked, not_applicable, len(positions), assumed)
+    if not len(positions):
+        return tally, None
+    table = flag_records(rule.id, rule.severity, stars.first_row, positions, stars.ids,
+                         outcome.describe(positions), outcome.observed, outcome.expected,
+                         outcome.deviation)
+    return tally, table
 
 
 def _assumed_errors(needs: Sequence[str], stars: StarBatch, available: np.ndarray
@@ -170,16 +224,14 @@ def _assumed_errors(needs: Sequence[str], stars: StarBatch, available: np.ndarra
 def _merge(tables: list[pa.Table], rules: Sequence[Rule]) -> tuple[pa.Table, np.ndarray]:
     """One batch's flags sorted by (row, rule order), and the severity rank of each flag.
 
-    ``tables[i]`` holds the flags of ``rules[i]``; rule order and severity are constant per
-    table, so no per-flag Python work is needed.
+    ``tables[i]`` holds the flags of ``rules[i]`` (in rule order); rule order and severity
+    are constant per table, so no per-flag Python work is needed.
     """
     flags = pa.concat_tables(tables)
     sizes = [t.num_rows for t in tables]
     rule_order = np.repeat(np.arange(len(tables)), sizes)
     rank = np.repeat(np.array([SEVERITY_RANK[r.severity] for r in rules], dtype=np.int8),
                      sizes)
-    if flags.num_rows == 0:
-        return flags, rank
     order = np.lexsort((rule_order, flags["row"].to_numpy()))
     return flags.take(pa.array(order)), rank[order]
 

@@ -9,10 +9,13 @@ from __future__ import annotations
 
 import queue
 import threading
-from collections.abc import Iterator
+from collections import deque
+from collections.abc import Callable, Iterable, Iterator
+from concurrent.futures import Future, ThreadPoolExecutor
 from typing import TypeVar
 
 T = TypeVar("T")
+R = TypeVar("R")
 
 _DONE = object()
 
@@ -65,3 +68,27 @@ def _put(buffer: queue.Queue, item: object, stop: threading.Event) -> bool:
         except queue.Full:
             continue
     return False
+
+
+def ordered_map(function: Callable[[T], R], items: Iterable[T], workers: int = 1
+                ) -> Iterator[R]:
+    """``map(function, items)`` on ``workers`` threads, results in input order.
+
+    At most ``workers + 1`` items are in flight, so memory stays bounded however long
+    ``items`` is.  With one worker this is plain ``map``.
+    """
+    if workers <= 1:
+        yield from map(function, items)
+        return
+    pending: deque[Future[R]] = deque()
+    with ThreadPoolExecutor(max_workers=workers, thread_name_prefix="catcheck-check") as pool:
+        try:
+            for item in items:
+                pending.append(pool.submit(function, item))
+                if len(pending) > workers:
+                    yield pending.popleft().result()
+            while pending:
+                yield pending.popleft().result()
+        finally:
+            for future in pending:
+                future.cancel()

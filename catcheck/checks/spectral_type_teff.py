@@ -21,6 +21,7 @@ from catcheck.physics.spectral import (
     SCALE_NAMES,
     SCALES_FOR_GROUP,
     LuminosityGroup,
+    SpectralTypes,
     TypeKind,
     parse_spectral_types,
     teff_scale,
@@ -109,18 +110,25 @@ def _which(scale_position: int, group: int) -> str:
 
 
 def evaluate(batch: StarBatch, params: Params) -> Outcome:
-    """Flag rows whose Teff lies > threshold sigma outside the band of their type's scale."""
-    teff = batch.values["teff"]
+    """Flag rows whose Teff lies > threshold sigma outside the band of their type's scale.
+
+    Only rows with a usable MK type and a Teff are computed (often a minority of a
+    catalogue); the rest are not applicable.
+    """
+    all_types = parse_spectral_types(batch.text["spectral_type"])
+    usable = all_types.values("kind") == TypeKind.MK
+    typed = np.flatnonzero(usable[all_types.codes] & ~np.isnan(batch.values["teff"]))
+    types = SpectralTypes(all_types.distinct, all_types.codes[typed])
     spectral = batch.text["spectral_type"]
-    types = parse_spectral_types(spectral)
+    teff = batch.values["teff"][typed]
     group = types.values("group")
     index = types.values("index")
     half_width = np.where(types.values("uncertain"), params["uncertain_type_tolerance"],
                           params["type_tolerance"])
-    usable = types.values("kind") == TypeKind.MK
     with np.errstate(divide="ignore", invalid="ignore"):
         log_teff = np.log10(teff)
-        s_teff = batch.error_or("teff", params["assumed_teff_fraction"] * teff) / (teff * LN10)
+        s_teff = batch.error_or("teff", params["assumed_teff_fraction"] * batch.values["teff"]
+                                )[typed] / (teff * LN10)
 
     bands = type_teff_bands(np.where(usable, index, np.nan), group, half_width)
     cool_by_scale, hot_by_scale = types.rows(bands.cool), types.rows(bands.hot)
@@ -135,24 +143,29 @@ def evaluate(batch: StarBatch, params: Params) -> Outcome:
     def pick(by_scale: np.ndarray) -> np.ndarray:
         return np.take_along_axis(by_scale, chosen[np.newaxis], axis=0)[0]
 
-    deviation = pick(deviation_by_scale)
-    applies = np.isfinite(deviation)
-    deviation[~applies] = np.nan
+    typed_deviation = pick(deviation_by_scale)
+    typed_deviation[~np.isfinite(typed_deviation)] = np.nan
     cool, hot, sigma = pick(cool_by_scale), pick(hot_by_scale), pick(sigma_by_scale)
+    typed_expected = 10.0 ** bands.centre[chosen, types.codes]
+    deviation = _spread(typed_deviation, typed, batch.size)
+    expected = _spread(typed_expected, typed, batch.size)
+    applies = ~np.isnan(deviation)
     with np.errstate(invalid="ignore"):
         failed = applies & (deviation > params["threshold"])
-    expected = 10.0 ** bands.centre[chosen, types.codes]
     row_half_width = types.rows(half_width)
     row_group = types.rows(group)
+    position = np.full(batch.size, -1, dtype=np.intp)
+    position[typed] = np.arange(len(typed))
 
     def describe(rows: np.ndarray) -> list[str]:
         rows = np.asarray(rows, dtype=np.intp)
         labels = spectral.take(pa.array(rows, type=pa.int64())).to_pylist()
+        at = position[rows]
         # plain Python values: formatting them is much faster than numpy scalars
-        columns = (teff, expected, 10.0**cool, 10.0**hot, log_teff - hot, cool - log_teff,
-                   deviation, sigma, row_half_width)
-        values = zip(*(np.asarray(c, dtype=float)[rows].tolist() for c in columns),
-                     chosen[rows].tolist(), row_group[rows].tolist(), strict=True)
+        columns = (teff, typed_expected, 10.0**cool, 10.0**hot, log_teff - hot,
+                   cool - log_teff, typed_deviation, sigma, row_half_width)
+        values = zip(*(np.asarray(c, dtype=float)[at].tolist() for c in columns),
+                     chosen[at].tolist(), row_group[at].tolist(), strict=True)
         return [
             f"{label} ({_GROUP_TEXT[group_k]}): Teff {t:.0f} K, but {_which(scale_k, group_k)} "
             f"gives {e:.0f} K for this type ({lo:.0f}-{hi:.0f} K within {w:g} subtype); "
@@ -162,7 +175,14 @@ def evaluate(batch: StarBatch, params: Params) -> Outcome:
             in zip(labels, values, strict=True)
         ]
 
-    return Outcome(failed, describe, teff, expected, deviation, applies)
+    return Outcome(failed, describe, batch.values["teff"], expected, deviation, applies)
+
+
+def _spread(values: np.ndarray, rows: np.ndarray, size: int) -> np.ndarray:
+    """Values known at ``rows`` placed in a full-length array, NaN elsewhere."""
+    full = np.full(size, np.nan)
+    full[rows] = values
+    return full
 
 
 CHECK = Check(
