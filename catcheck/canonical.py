@@ -10,6 +10,7 @@ import numpy as np
 import pyarrow as pa
 import pyarrow.compute as pc
 
+from catcheck.physics.stellar import LN10
 from catcheck.profile import Profile, QuantityMapping
 from catcheck.quantities import NO_PHASE, PHASE_INDEX, QUANTITIES
 
@@ -34,6 +35,8 @@ class StarBatch:
     groups: pa.Array | None = None
     _missing_errors: dict[str, np.ndarray] = field(default_factory=dict, repr=False)
     _has: dict[str, np.ndarray] = field(default_factory=dict, repr=False)
+    _log10: dict[str, np.ndarray] = field(default_factory=dict, repr=False)
+    _log_errors: dict[str, np.ndarray] = field(default_factory=dict, repr=False)
 
     def __len__(self) -> int:
         return self.size
@@ -74,6 +77,32 @@ class StarBatch:
             return default
         missing = self.missing_error(quantity)
         return np.where(missing, default, given) if missing.any() else given
+
+    def log10(self, quantity: str) -> np.ndarray:
+        """log10 of a quantity in canonical units (computed once per batch).
+
+        For columns declared in dex this is the catalogue's own column, unrounded.
+        """
+        if quantity not in self._log10:
+            with np.errstate(divide="ignore", invalid="ignore"):
+                self._log10[quantity] = np.log10(self.values[quantity])
+        return self._log10[quantity]
+
+    def log_sigma(self, quantity: str, assumed_dex: float) -> np.ndarray:
+        """1-sigma of ``log10(quantity)`` in dex: the catalogue's, else ``assumed_dex``.
+
+        Linear errors propagate as ``sigma / (x ln 10)``; errors of dex columns are used
+        as given.  Rows without a usable catalogue error get ``assumed_dex``.
+        """
+        given = self._log_errors.get(quantity)
+        if given is None and quantity in self.errors:
+            with np.errstate(divide="ignore", invalid="ignore"):
+                given = self.errors[quantity] / (np.abs(self.values[quantity]) * LN10)
+            self._log_errors[quantity] = given
+        if given is None:
+            return np.broadcast_to(np.float64(assumed_dex), (self.size,))
+        missing = self.missing_error(quantity)
+        return np.where(missing, assumed_dex, given) if missing.any() else given
 
     def environment(self) -> dict[str, np.ndarray]:
         """Values by quantity name, phase codes included, for the expression language."""
@@ -141,13 +170,19 @@ def canonical_batch(profile: Profile, batch: pa.RecordBatch, first_row: int,
 
 def _add_numeric(stars: StarBatch, mapping: QuantityMapping, batch: pa.RecordBatch) -> None:
     assert mapping.conversion is not None
+    quantity = mapping.quantity
     raw = to_float(batch[mapping.column])
     values = mapping.conversion.values(raw)
-    stars.values[mapping.quantity] = values
+    stars.values[quantity] = values
+    is_log = mapping.conversion.kind == "dex" and mapping.conversion.scale == 1.0
+    if is_log:  # the column already holds log10 of the canonical value: keep it exact
+        stars._log10[quantity] = raw
     if mapping.error_column is not None:
         errors = to_float(batch[mapping.error_column])
     elif mapping.error_value is not None:
         errors = np.full(stars.size, mapping.error_value)
     else:
         return
-    stars.errors[mapping.quantity] = mapping.conversion.errors(values, errors)
+    stars.errors[quantity] = mapping.conversion.errors(values, errors)
+    if is_log:
+        stars._log_errors[quantity] = np.abs(errors)

@@ -35,10 +35,10 @@ class Conversion:
     scale: float = 1.0
 
     def values(self, values: NDArray[np.float64]) -> NDArray[np.float64]:
-        """Convert catalogue values to canonical units (new array; input untouched)."""
+        """Convert catalogue values to canonical units (the input is never modified)."""
         with np.errstate(over="ignore", invalid="ignore"):
             if self.kind == "linear":
-                return values * self.scale if self.scale != 1.0 else values.copy()
+                return values * self.scale if self.scale != 1.0 else values
             if self.kind == "dex":
                 return np.power(10.0, values) * self.scale
             return luminosity_from_bolometric_magnitude(values)

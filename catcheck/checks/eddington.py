@@ -14,7 +14,7 @@ from catcheck.checks.base import (
     combined_sigma,
     fixed_needs,
 )
-from catcheck.physics.stellar import LN10, log_eddington_luminosity
+from catcheck.physics.stellar import LN10, log_eddington_luminosity_log
 
 DOC = Documentation(
     what="Flags a star more luminous than the Eddington luminosity of its catalogued mass.",
@@ -45,15 +45,12 @@ DOC = Documentation(
 
 def evaluate(batch: StarBatch, params: Params) -> Outcome:
     """Flag rows whose log L exceeds log L_Edd(M) by more than threshold sigma."""
-    luminosity = batch.values["luminosity"]
     mass = batch.values["mass"]
-    with np.errstate(divide="ignore", invalid="ignore"):
-        observed = np.log10(luminosity)
-        s_logl = batch.error_or("luminosity", params["assumed_luminosity_dex"] * luminosity
-                                * LN10) / (luminosity * LN10)
-        s_m = batch.error_or("mass", params["assumed_mass_fraction"] * mass) / mass
-    expected = log_eddington_luminosity(mass, params["hydrogen_fraction"])
-    sigma = combined_sigma(s_logl, s_m / LN10, floor=params["floor_dex"])
+    observed = batch.log10("luminosity")
+    expected = log_eddington_luminosity_log(batch.log10("mass"), params["hydrogen_fraction"])
+    s_logl = batch.log_sigma("luminosity", params["assumed_luminosity_dex"])
+    s_logm = batch.log_sigma("mass", params["assumed_mass_fraction"] / LN10)
+    sigma = combined_sigma(s_logl, s_logm, floor=params["floor_dex"])
     with np.errstate(invalid="ignore"):
         deviation = (observed - expected) / sigma
         failed = deviation > params["threshold"]

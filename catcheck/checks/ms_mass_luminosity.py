@@ -51,17 +51,14 @@ DOC = Documentation(
 
 def evaluate(batch: StarBatch, params: Params) -> Outcome:
     """Flag main-sequence rows far outside the mass-luminosity band."""
-    luminosity = batch.values["luminosity"]
     mass = batch.values["mass"]
     applies = phase_is(batch, "MS") & (mass >= params["min_mass"]) & (
         mass <= params["max_mass"])
-    with np.errstate(divide="ignore", invalid="ignore"):
-        observed = np.log10(luminosity)
-        expected, slope = eker2018_log_luminosity_and_slope(mass)
-        s_logl = batch.error_or("luminosity", params["assumed_luminosity_dex"] * luminosity
-                                * LN10) / (luminosity * LN10)
-        s_m = batch.error_or("mass", params["assumed_mass_fraction"] * mass) / mass
-    sigma = combined_sigma(s_logl, slope * s_m / LN10, params["intrinsic_dex"])
+    observed = batch.log10("luminosity")
+    expected, slope = eker2018_log_luminosity_and_slope(mass)
+    s_logl = batch.log_sigma("luminosity", params["assumed_luminosity_dex"])
+    s_logm = batch.log_sigma("mass", params["assumed_mass_fraction"] / LN10)
+    sigma = combined_sigma(s_logl, slope * s_logm, params["intrinsic_dex"])
     low = expected - params["band_below_dex"]
     high = expected + params["band_above_dex"]
     deviation = excess_sigma(observed, sigma, low, high)

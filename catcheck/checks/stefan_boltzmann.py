@@ -14,7 +14,7 @@ from catcheck.checks.base import (
     combined_sigma,
     fixed_needs,
 )
-from catcheck.physics.stellar import LN10, log_luminosity_stefan_boltzmann
+from catcheck.physics.stellar import LN10, log_luminosity_stefan_boltzmann_log
 
 DOC = Documentation(
     what="Compares the catalogued luminosity with the one implied by the catalogued radius "
@@ -44,18 +44,15 @@ DOC = Documentation(
 
 def evaluate(batch: StarBatch, params: Params) -> Outcome:
     """Flag rows whose log L departs from 2 log R + 4 log(Teff/Teff_sun) by > threshold sigma."""
-    luminosity = batch.values["luminosity"]
     radius = batch.values["radius"]
     teff = batch.values["teff"]
-    with np.errstate(divide="ignore", invalid="ignore"):
-        observed = np.log10(luminosity)
-        s_logl = batch.error_or("luminosity", params["assumed_luminosity_dex"] * luminosity
-                                * LN10) / (luminosity * LN10)
-        s_r = batch.error_or("radius", params["assumed_radius_fraction"] * radius) / radius
-        s_t = batch.error_or("teff", params["assumed_teff_fraction"] * teff) / teff
-    expected = log_luminosity_stefan_boltzmann(radius, teff)
-    sigma = combined_sigma(s_logl, 2.0 * s_r / LN10, 4.0 * s_t / LN10,
-                           params["intrinsic_dex"], floor=params["floor_dex"])
+    observed = batch.log10("luminosity")
+    expected = log_luminosity_stefan_boltzmann_log(batch.log10("radius"), batch.log10("teff"))
+    s_logl = batch.log_sigma("luminosity", params["assumed_luminosity_dex"])
+    s_logr = batch.log_sigma("radius", params["assumed_radius_fraction"] / LN10)
+    s_logt = batch.log_sigma("teff", params["assumed_teff_fraction"] / LN10)
+    sigma = combined_sigma(s_logl, 2.0 * s_logr, 4.0 * s_logt, params["intrinsic_dex"],
+                           floor=params["floor_dex"])
     with np.errstate(invalid="ignore"):
         deviation = np.abs(observed - expected) / sigma
         failed = deviation > params["threshold"]

@@ -14,7 +14,7 @@ from catcheck.checks.base import (
     combined_sigma,
     fixed_needs,
 )
-from catcheck.physics.stellar import LN10, log_surface_gravity
+from catcheck.physics.stellar import LN10, log_surface_gravity_log
 
 DOC = Documentation(
     what="Compares the catalogued log g with the one implied by the catalogued mass and "
@@ -46,12 +46,11 @@ def evaluate(batch: StarBatch, params: Params) -> Outcome:
     logg = batch.values["logg"]
     mass = batch.values["mass"]
     radius = batch.values["radius"]
-    expected = log_surface_gravity(mass, radius)
-    with np.errstate(divide="ignore", invalid="ignore"):
-        s_logg = batch.error_or("logg", params["assumed_logg_dex"])
-        s_m = batch.error_or("mass", params["assumed_mass_fraction"] * mass) / mass
-        s_r = batch.error_or("radius", params["assumed_radius_fraction"] * radius) / radius
-    sigma = combined_sigma(s_logg, s_m / LN10, 2.0 * s_r / LN10, floor=params["floor_dex"])
+    expected = log_surface_gravity_log(batch.log10("mass"), batch.log10("radius"))
+    s_logg = batch.error_or("logg", params["assumed_logg_dex"])
+    s_logm = batch.log_sigma("mass", params["assumed_mass_fraction"] / LN10)
+    s_logr = batch.log_sigma("radius", params["assumed_radius_fraction"] / LN10)
+    sigma = combined_sigma(s_logg, s_logm, 2.0 * s_logr, floor=params["floor_dex"])
     with np.errstate(invalid="ignore"):
         deviation = np.abs(logg - expected) / sigma
         failed = deviation > params["threshold"]

@@ -24,6 +24,7 @@ from catcheck.constants import (
 )
 
 LN10 = float(np.log(10.0))
+LOG_TEFF_SUN = float(np.log10(TEFF_SUN.value))
 
 
 def log_luminosity_stefan_boltzmann(radius: ArrayLike, teff: ArrayLike) -> NDArray[np.float64]:
@@ -33,10 +34,16 @@ def log_luminosity_stefan_boltzmann(radius: ArrayLike, teff: ArrayLike) -> NDArr
     ``log L = 2 log R + 4 log(Teff / Teff_sun)``.  With the IAU 2015 Resolution B3
     nominal values (R_sun, L_sun, Teff_sun = 5772 K) this is exact to 1e-6 dex.
     """
-    radius = np.asarray(radius, dtype=float)
-    teff = np.asarray(teff, dtype=float)
     with np.errstate(divide="ignore", invalid="ignore"):
-        return 2.0 * np.log10(radius) + 4.0 * np.log10(teff / TEFF_SUN.value)
+        return log_luminosity_stefan_boltzmann_log(np.log10(np.asarray(radius, dtype=float)),
+                                                   np.log10(np.asarray(teff, dtype=float)))
+
+
+def log_luminosity_stefan_boltzmann_log(log_radius: ArrayLike, log_teff: ArrayLike
+                                        ) -> NDArray[np.float64]:
+    """:func:`log_luminosity_stefan_boltzmann` from log10 R/Rsun and log10 Teff/K."""
+    return 2.0 * np.asarray(log_radius, dtype=float) + 4.0 * (
+        np.asarray(log_teff, dtype=float) - LOG_TEFF_SUN)
 
 
 def radius_stefan_boltzmann(luminosity: ArrayLike, teff: ArrayLike) -> NDArray[np.float64]:
@@ -53,10 +60,16 @@ def log_surface_gravity(mass: ArrayLike, radius: ArrayLike) -> NDArray[np.float6
     ``log g = log g_sun + log M - 2 log R`` with log g_sun = 4.43807 from the IAU 2015
     nominal solar mass parameter (GM)_sun and radius (Resolution B3).
     """
-    mass = np.asarray(mass, dtype=float)
-    radius = np.asarray(radius, dtype=float)
     with np.errstate(divide="ignore", invalid="ignore"):
-        return LOGG_SUN.value + np.log10(mass) - 2.0 * np.log10(radius)
+        return log_surface_gravity_log(np.log10(np.asarray(mass, dtype=float)),
+                                       np.log10(np.asarray(radius, dtype=float)))
+
+
+def log_surface_gravity_log(log_mass: ArrayLike, log_radius: ArrayLike
+                            ) -> NDArray[np.float64]:
+    """:func:`log_surface_gravity` from log10 M/Msun and log10 R/Rsun."""
+    return LOGG_SUN.value + np.asarray(log_mass, dtype=float) - 2.0 * np.asarray(
+        log_radius, dtype=float)
 
 
 def absolute_bolometric_magnitude(luminosity: ArrayLike) -> NDArray[np.float64]:
@@ -105,11 +118,17 @@ def log_eddington_luminosity(mass: ArrayLike, hydrogen_fraction: float = 0.7
     2nd ed., section 17.7 / 22.4).  With the IAU 2015 nominal (GM)_sun and L_sun this is
     3.84e4 (M/Msun) Lsun for X = 0.7 and 3.27e4 for X = 1 (computed).
     """
-    mass = np.asarray(mass, dtype=float)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        log_mass = np.log10(np.asarray(mass, dtype=float))
+    return log_eddington_luminosity_log(log_mass, hydrogen_fraction)
+
+
+def log_eddington_luminosity_log(log_mass: ArrayLike, hydrogen_fraction: float = 0.7
+                                 ) -> NDArray[np.float64]:
+    """:func:`log_eddington_luminosity` from log10 M/Msun."""
     kappa_si = 0.02 * (1.0 + hydrogen_fraction)  # 0.2 (1 + X) cm^2/g in m^2/kg
     per_solar_mass = 4.0 * np.pi * GM_SUN.value * C_LIGHT.value / kappa_si / L_SUN.value
-    with np.errstate(divide="ignore", invalid="ignore"):
-        return np.log10(per_solar_mass * mass)
+    return np.log10(per_solar_mass) + np.asarray(log_mass, dtype=float)
 
 
 def chandrasekhar_mass(mean_molecular_weight_per_electron: float = 2.0) -> float:
