@@ -63,7 +63,9 @@ def run_case(case: str, catalogue: Path, profile: Path, args: argparse.Namespace
     command = [sys.executable, __file__, "--child", case, "--catalogue", str(catalogue),
                "--profile", str(profile), "--batch-rows", str(args.batch_rows),
                "--out", str(out), "--packs", *args.packs]
-    done = subprocess.run(command, check=True, capture_output=True, text=True)
+    done = subprocess.run(command, capture_output=True, text=True)
+    if done.returncode:
+        sys.exit(f"benchmark case {case!r} failed:\n{done.stderr.strip()}")
     return json.loads(done.stdout.strip().splitlines()[-1])
 
 

@@ -73,6 +73,14 @@ def combined_sigma(*terms: np.ndarray | float, floor: float = 0.0) -> np.ndarray
     return np.maximum(np.sqrt(total), floor)
 
 
+def sigma_deviation(observed: np.ndarray, expected: np.ndarray, sigma: np.ndarray,
+                    threshold: float) -> tuple[np.ndarray, np.ndarray]:
+    """``|observed - expected| / sigma`` and where it exceeds ``threshold`` (NaN never does)."""
+    with np.errstate(invalid="ignore", divide="ignore"):
+        deviation = np.abs(observed - expected) / sigma
+        return deviation, deviation > threshold
+
+
 def excess_sigma(values: np.ndarray, sigma: np.ndarray | float, low: float | np.ndarray,
                  high: float | np.ndarray) -> np.ndarray:
     """How far ``values`` lie outside ``[low, high]``, in units of ``sigma``.

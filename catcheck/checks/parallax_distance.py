@@ -13,6 +13,7 @@ from catcheck.checks.base import (
     at_rows,
     combined_sigma,
     fixed_needs,
+    sigma_deviation,
 )
 from catcheck.physics.stellar import distance_from_parallax
 
@@ -50,9 +51,8 @@ def evaluate(batch: StarBatch, params: Params) -> Outcome:
         s_expected = 1000.0 * s_plx / parallax**2
     s_d = batch.error_or("distance", params["assumed_distance_fraction"] * np.abs(distance))
     sigma = combined_sigma(s_d, s_expected)
-    with np.errstate(invalid="ignore", divide="ignore"):
-        deviation = np.abs(distance - expected) / sigma
-        failed = applies & (deviation > params["threshold"])
+    deviation, failed = sigma_deviation(distance, expected, sigma, params["threshold"])
+    failed &= applies
 
     def describe(rows: np.ndarray) -> list[str]:
         return [

@@ -13,6 +13,7 @@ from catcheck.checks.base import (
     at_rows,
     combined_sigma,
     fixed_needs,
+    sigma_deviation,
 )
 from catcheck.physics.stellar import LN10, log_luminosity_stefan_boltzmann_log
 
@@ -53,9 +54,7 @@ def evaluate(batch: StarBatch, params: Params) -> Outcome:
     s_logt = batch.log_sigma("teff", params["assumed_teff_fraction"] / LN10)
     sigma = combined_sigma(s_logl, 2.0 * s_logr, 4.0 * s_logt, params["intrinsic_dex"],
                            floor=params["floor_dex"])
-    with np.errstate(invalid="ignore"):
-        deviation = np.abs(observed - expected) / sigma
-        failed = deviation > params["threshold"]
+    deviation, failed = sigma_deviation(observed, expected, sigma, params["threshold"])
 
     def describe(rows: np.ndarray) -> list[str]:
         return [

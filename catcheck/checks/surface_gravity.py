@@ -13,6 +13,7 @@ from catcheck.checks.base import (
     at_rows,
     combined_sigma,
     fixed_needs,
+    sigma_deviation,
 )
 from catcheck.physics.stellar import LN10, log_surface_gravity_log
 
@@ -51,9 +52,7 @@ def evaluate(batch: StarBatch, params: Params) -> Outcome:
     s_logm = batch.log_sigma("mass", params["assumed_mass_fraction"] / LN10)
     s_logr = batch.log_sigma("radius", params["assumed_radius_fraction"] / LN10)
     sigma = combined_sigma(s_logg, s_logm, 2.0 * s_logr, floor=params["floor_dex"])
-    with np.errstate(invalid="ignore"):
-        deviation = np.abs(logg - expected) / sigma
-        failed = deviation > params["threshold"]
+    deviation, failed = sigma_deviation(logg, expected, sigma, params["threshold"])
 
     def describe(rows: np.ndarray) -> list[str]:
         return [
