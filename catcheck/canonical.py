@@ -9,9 +9,12 @@ from dataclasses import dataclass, field
 import numpy as np
 import pyarrow as pa
 import pyarrow.compute as pc
+import pyarrow.parquet as pq
 
+from catcheck.errors import CatalogueError, ProfileError
+from catcheck.groups import GroupKeys, GroupSummary
 from catcheck.physics.stellar import LN10
-from catcheck.profile import Profile, QuantityMapping
+from catcheck.profile import Profile, QuantityMapping, did_you_mean
 from catcheck.quantities import NO_PHASE, PHASE_INDEX, QUANTITIES
 
 
@@ -33,6 +36,8 @@ class StarBatch:
     phase: np.ndarray | None = None
     text: dict[str, pa.Array] = field(default_factory=dict)
     groups: pa.Array | None = None
+    group_codes: np.ndarray | None = None
+    group_stats: dict[str, GroupSummary] = field(default_factory=dict)
     _missing_errors: dict[str, np.ndarray] = field(default_factory=dict, repr=False)
     _has: dict[str, np.ndarray] = field(default_factory=dict, repr=False)
     _log10: dict[str, np.ndarray] = field(default_factory=dict, repr=False)
@@ -104,6 +109,11 @@ class StarBatch:
         missing = self.missing_error(quantity)
         return np.where(missing, assumed_dex, given) if missing.any() else given
 
+    def group_statistic(self, name: str) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """(member count, median, robust spread) of a group variable for each row's group."""
+        assert self.group_codes is not None, "group statistics need the profile's group"
+        return self.group_stats[name].at(self.group_codes)
+
     def environment(self) -> dict[str, np.ndarray]:
         """Values by quantity name, phase codes included, for the expression language."""
         env = dict(self.values)
@@ -151,21 +161,112 @@ def to_float(column: pa.Array) -> np.ndarray:
     return column.to_numpy(zero_copy_only=False)
 
 
+@dataclass
+class Labels:
+    """The label maps of one run, shared by every batch: phases and groups."""
+
+    phases: PhaseLabels
+    groups: GroupKeys = field(default_factory=GroupKeys)
+    group_values: GroupValues | None = None
+
+
 def canonical_batch(profile: Profile, batch: pa.RecordBatch, first_row: int,
-                    phases: PhaseLabels) -> StarBatch:
+                    labels: Labels) -> StarBatch:
     """Convert one record batch to canonical units following the profile."""
     stars = StarBatch(first_row, batch.num_rows, pc.cast(batch[profile.id_column], pa.string()))
     if profile.group_column:
         stars.groups = batch[profile.group_column]
+        stars.group_codes = labels.groups.codes(stars.groups)
     for name, mapping in profile.quantities.items():
         column = batch[mapping.column]
         if name == "phase":
-            stars.phase = phases.codes(column)
+            stars.phase = labels.phases.codes(column)
         elif not QUANTITIES[name].numeric:
             stars.text[name] = pc.cast(column, pa.string())
         else:
             _add_numeric(stars, mapping, batch)
+    if labels.group_values is not None:
+        labels.group_values.fill(stars)
     return stars
+
+
+@dataclass
+class GroupValues:
+    """Per-group quantities from a second table, by group code, in canonical units.
+
+    A member without its own value of a quantity takes its group's (and its error).
+    """
+
+    values: dict[str, np.ndarray]
+    errors: dict[str, np.ndarray]
+
+    def fill(self, stars: StarBatch) -> None:
+        """Fill the batch's missing values (and errors) from the members' groups."""
+        codes = stars.group_codes
+        assert codes is not None
+        for quantity, by_group in self.values.items():
+            from_group = _by_code(by_group, codes)
+            own = stars.values.get(quantity)
+            missing = np.isnan(own) if own is not None else np.ones(stars.size, dtype=bool)
+            stars.values[quantity] = from_group if own is None else np.where(
+                missing, from_group, own)
+            stars._log10.pop(quantity, None)
+            stars._log_errors.pop(quantity, None)
+            if quantity in self.errors:
+                group_error = _by_code(self.errors[quantity], codes)
+                own_error = stars.errors.get(quantity)
+                stars.errors[quantity] = group_error if own_error is None else np.where(
+                    missing, group_error, own_error)
+
+
+def _by_code(by_group: np.ndarray, codes: np.ndarray) -> np.ndarray:
+    """Per-group values spread to rows; NaN for rows without a group or a table entry."""
+    inside = (codes >= 0) & (codes < len(by_group))
+    return np.where(inside, by_group[np.where(inside, codes, 0)] if len(by_group) else np.nan,
+                    np.nan)
+
+
+def load_group_values(profile: Profile, keys: GroupKeys) -> GroupValues | None:
+    """Read the profile's ``[groups]`` table into canonical per-group values."""
+    table_spec = profile.groups
+    if table_spec is None:
+        return None
+    try:
+        table = pq.read_table(table_spec.table)
+    except FileNotFoundError:
+        raise CatalogueError("group table not found", where=str(table_spec.table),
+                             fix="fix [groups] table in the profile") from None
+    except (OSError, pa.ArrowException) as exc:
+        raise CatalogueError(f"cannot read the group table: {exc}",
+                             where=str(table_spec.table)) from None
+    needed = [table_spec.key] + [c for m in table_spec.quantities.values() for c in m.columns]
+    for column in needed:
+        if column not in table.column_names:
+            raise ProfileError(f"column {column!r} is not in the group table "
+                               f"{table_spec.table}", where=f"{profile.source}: [groups]",
+                               fix=did_you_mean(column, table.column_names)
+                               or f"it has: {', '.join(table.column_names)}")
+    codes = keys.register(table[table_spec.key].to_pylist())
+    size = int(codes.max()) + 1 if len(codes) else 0
+    values, errors = {}, {}
+    for quantity, mapping in table_spec.quantities.items():
+        assert mapping.conversion is not None
+        raw = to_float(table[mapping.column].combine_chunks())
+        canonical = mapping.conversion.values(raw)
+        values[quantity] = _scatter(canonical, codes, size)
+        if mapping.error_column or mapping.error_value is not None:
+            raw_error = (to_float(table[mapping.error_column].combine_chunks())
+                         if mapping.error_column else np.full(len(raw), mapping.error_value))
+            errors[quantity] = _scatter(mapping.conversion.errors(canonical, raw_error),
+                                        codes, size)
+    return GroupValues(values, errors)
+
+
+def _scatter(values: np.ndarray, codes: np.ndarray, size: int) -> np.ndarray:
+    out = np.full(size, np.nan)
+    keep = codes >= 0
+    out[codes[keep]] = values[keep]
+    return out
 
 
 def _add_numeric(stars: StarBatch, mapping: QuantityMapping, batch: pa.RecordBatch) -> None:

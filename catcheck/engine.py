@@ -19,10 +19,17 @@ import numpy as np
 import pyarrow as pa
 import pyarrow.compute as pc
 
-from catcheck.canonical import PhaseLabels, StarBatch, canonical_batch
+from catcheck.canonical import (
+    Labels,
+    PhaseLabels,
+    StarBatch,
+    canonical_batch,
+    load_group_values,
+)
 from catcheck.checks.base import Outcome
 from catcheck.checks.physical_range import RangeSchema
 from catcheck.flags import flag_records
+from catcheck.groups import GroupAccumulator, GroupSummary
 from catcheck.packs import SEVERITY_RANK, Rule
 from catcheck.prefetch import ordered_map, prefetch
 from catcheck.profile import Profile
@@ -138,13 +145,23 @@ def run_rules(catalogue: Catalogue, profile: Profile, rules: Sequence[Rule], sin
     stats = RunStats(rules=[_prepare(rule, profile) for rule in rules])
     runnable = [s for s in stats.rules if s.status == "ran"]
     checker = BatchChecker([s.rule for s in runnable])
-    phases = PhaseLabels(profile.phases)
+    labels = Labels(PhaseLabels(profile.phases))
+    labels.group_values = load_group_values(profile, labels.groups)
     stats.rows_by_severity = dict.fromkeys(SEVERITY_RANK, 0)
     stats.flags_by_severity = dict.fromkeys(SEVERITY_RANK, 0)
 
-    converted = (canonical_batch(profile, batch, first_row, phases)
-                 for first_row, batch in catalogue.batches(profile.columns, batch_rows))
-    for result in ordered_map(checker.check, prefetch(converted), workers):
+    def converted() -> Iterator[StarBatch]:
+        for first_row, batch in catalogue.batches(profile.columns, batch_rows):
+            yield canonical_batch(profile, batch, first_row, labels)
+
+    group_stats = _group_pass(checker.rules, converted, labels) if profile.group_column else {}
+    labels.phases.unmapped.clear()  # pass 2 counts the labels again
+
+    def with_group_stats(stars: StarBatch) -> BatchResult:
+        stars.group_stats = group_stats
+        return checker.check(stars)
+
+    for result in ordered_map(with_group_stats, prefetch(converted()), workers):
         stats.rows += result.rows
         for rule_stats, tally in zip(runnable, result.tallies, strict=True):
             rule_stats.add(tally, result.flags)
@@ -153,13 +170,28 @@ def run_rules(catalogue: Catalogue, profile: Profile, rules: Sequence[Rule], sin
             sink(result.flags)
         if progress:
             progress(result.rows)
-    stats.unmapped_phase_labels = dict(sorted(phases.unmapped.items()))
+    stats.unmapped_phase_labels = dict(sorted(labels.phases.unmapped.items()))
     return stats
+
+
+def _group_pass(rules: Sequence[Rule], batches: Callable[[], Iterator[StarBatch]],
+                labels: Labels) -> dict[str, GroupSummary]:
+    """Pass 1: aggregate every group variable the rules need over the whole catalogue."""
+    variables = {name: variable for rule in rules
+                 for name, variable in rule.check.group_variables.items()}
+    if not variables:
+        return {}
+    accumulator = GroupAccumulator(variables)
+    for stars in prefetch(batches()):
+        accumulator.add(stars)
+    return accumulator.finish(len(labels.groups.code_of))
 
 
 def _prepare(rule: Rule, profile: Profile) -> RuleStats:
     stats = RuleStats(rule)
     missing = [q for q in rule.needs if not profile.provides(q)]
+    if rule.check.group_variables and not profile.group_column:
+        missing.append("group")
     if missing:
         stats.status = f"not-run: missing {', '.join(missing)}"
     return stats

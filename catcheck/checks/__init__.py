@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 from catcheck.checks import (
+    cluster_members,
     eddington,
     mass_limits,
     ms_mass_luminosity,
@@ -26,5 +27,8 @@ CHECKS: dict[str, Check] = {
         mass_limits.CHANDRASEKHAR,
         parallax_distance.CHECK,
         spectral_type_teff.CHECK,
+        cluster_members.PARALLAX_CHECK,
+        cluster_members.METALLICITY_CHECK,
+        cluster_members.AGE_CHECK,
     )
 }

@@ -14,6 +14,7 @@ from typing import Any
 import numpy as np
 
 from catcheck.canonical import StarBatch
+from catcheck.groups import GroupVariable
 
 Params = Mapping[str, Any]
 
@@ -60,6 +61,9 @@ class Check:
     #: param name -> default value; a type (``float``, ``str``) marks a required param
     defaults: Mapping[str, Any] = field(default_factory=dict)
     uses_errors: bool = True
+    #: for group rules: the per-group statistics the check reads in pass 2, by name; the
+    #: engine aggregates them over the whole catalogue in pass 1 (see catcheck.groups)
+    group_variables: Mapping[str, GroupVariable] = field(default_factory=dict)
 
 
 def fixed_needs(*quantities: str) -> Callable[[Params], tuple[str, ...]]:

@@ -1,0 +1,187 @@
+"""The group (cluster) pass: group codes, per-group values, and per-group statistics.
+
+Pass 1 streams the whole catalogue once and keeps, for every group and every variable a
+group rule asks for, an exact member count and a bounded sample of values; pass 2 checks
+each row against its group's robust centre (median) and spread (1.4826 x the median
+absolute deviation).  Memory grows with the number of groups, not of rows.
+
+The sample of a group is its ``SAMPLE_SIZE`` members with the smallest hash of their row
+number (a bottom-k sample): it does not depend on batch size, file split or worker count,
+and it is exact for groups no larger than the sample.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable, Mapping
+from dataclasses import dataclass
+from typing import TYPE_CHECKING
+
+import numpy as np
+import pyarrow as pa
+import pyarrow.compute as pc
+
+SAMPLE_SIZE = 1024
+#: 1.4826 x MAD estimates the standard deviation of a normal distribution
+MAD_TO_SIGMA = 1.4826
+NO_GROUP = -1
+
+if TYPE_CHECKING:
+    from catcheck.canonical import StarBatch
+
+#: what a group rule aggregates: a function of a batch, NaN where a row does not count
+GroupVariable = Callable[["StarBatch"], np.ndarray]
+
+
+def row_hash(rows: np.ndarray) -> np.ndarray:
+    """A well-mixed 64-bit hash of row numbers (splitmix64 finaliser, Steele et al. 2014)."""
+    with np.errstate(over="ignore"):
+        z = rows.astype(np.uint64) + np.uint64(0x9E3779B97F4A7C15)
+        z = (z ^ (z >> np.uint64(30))) * np.uint64(0xBF58476D1CE4E5B9)
+        z = (z ^ (z >> np.uint64(27))) * np.uint64(0x94D049BB133111EB)
+        return z ^ (z >> np.uint64(31))
+
+
+class GroupKeys:
+    """Dense integer codes for group labels, in order of first appearance."""
+
+    def __init__(self) -> None:
+        self.code_of: dict[str, int] = {}
+
+    @property
+    def labels(self) -> list[str]:
+        """Group labels by code."""
+        return list(self.code_of)
+
+    def register(self, labels: list[object]) -> np.ndarray:
+        """Codes of ``labels`` (None gives NO_GROUP), adding labels not seen before.
+
+        Labels are compared as text, so a group table keyed by the integer 17 matches a
+        catalogue column holding "17".
+        """
+        codes = np.empty(len(labels), dtype=np.int64)
+        for i, label in enumerate(labels):
+            if label is None:
+                codes[i] = NO_GROUP
+            else:
+                codes[i] = self.code_of.setdefault(str(label), len(self.code_of))
+        return codes
+
+    def codes(self, column: pa.Array) -> np.ndarray:
+        """Group codes (int64, NO_GROUP for null) of a column, each distinct label once."""
+        if not pa.types.is_dictionary(column.type):
+            column = column.dictionary_encode()
+        lookup = np.append(self.register(column.dictionary.to_pylist()), NO_GROUP)
+        indices = column.indices.fill_null(len(column.dictionary))
+        return lookup[indices.to_numpy(zero_copy_only=False)]
+
+
+@dataclass(frozen=True)
+class GroupSummary:
+    """One variable's statistics by group code: member count, median and robust spread."""
+
+    count: np.ndarray
+    median: np.ndarray
+    spread: np.ndarray
+
+    def at(self, codes: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """(count, median, spread) for each row's group code; 0 / NaN without a group."""
+        if not len(self.count):
+            return np.zeros(len(codes), dtype=np.int64), *np.full((2, len(codes)), np.nan)
+        inside = (codes >= 0) & (codes < len(self.count))
+        safe = np.where(inside, codes, 0)
+        return (np.where(inside, self.count[safe], 0),
+                np.where(inside, self.median[safe], np.nan),
+                np.where(inside, self.spread[safe], np.nan))
+
+
+class _BottomSample:
+    """Per group, the values of the ``size`` members with the smallest row hash."""
+
+    def __init__(self, size: int) -> None:
+        self.size = size
+        self.codes = np.empty(0, dtype=np.int64)
+        self.hashes = np.empty(0, dtype=np.uint64)
+        self.values = np.empty(0, dtype=float)
+        self.counts = np.zeros(0, dtype=np.int64)
+        self.cutoff = np.empty(0, dtype=np.uint64)  # largest kept hash of a full group
+
+    def add(self, codes: np.ndarray, hashes: np.ndarray, values: np.ndarray) -> None:
+        keep = (codes >= 0) & ~np.isnan(values)
+        codes, hashes, values = codes[keep], hashes[keep], values[keep]
+        if not len(codes):
+            return
+        self._grow(int(codes.max()) + 1)
+        self.counts += np.bincount(codes, minlength=len(self.counts))
+        below = hashes < self.cutoff[codes]
+        codes = np.concatenate([self.codes, codes[below]])
+        hashes = np.concatenate([self.hashes, hashes[below]])
+        values = np.concatenate([self.values, values[below]])
+        order = np.lexsort((hashes, codes))
+        codes, hashes, values = codes[order], hashes[order], values[order]
+        rank = _rank_within(codes)
+        kept = rank < self.size
+        self.codes, self.hashes, self.values = codes[kept], hashes[kept], values[kept]
+        full = np.flatnonzero(rank == self.size - 1)
+        self.cutoff[codes[full]] = hashes[full]
+
+    def _grow(self, groups: int) -> None:
+        extra = groups - len(self.counts)
+        if extra > 0:
+            self.counts = np.concatenate([self.counts, np.zeros(extra, dtype=np.int64)])
+            self.cutoff = np.concatenate(
+                [self.cutoff, np.full(extra, np.iinfo(np.uint64).max, dtype=np.uint64)])
+
+    def summary(self, groups: int) -> GroupSummary:
+        self._grow(groups)
+        median = _group_median(self.codes, self.values, groups)
+        deviation = np.abs(self.values - median[self.codes])
+        spread = MAD_TO_SIGMA * _group_median(self.codes, deviation, groups)
+        return GroupSummary(self.counts.copy(), median, spread)
+
+
+def _rank_within(sorted_codes: np.ndarray) -> np.ndarray:
+    """Position of each element within its run of equal codes (codes sorted)."""
+    starts = np.flatnonzero(np.r_[True, sorted_codes[1:] != sorted_codes[:-1]])
+    run_start = np.repeat(starts, np.diff(np.r_[starts, len(sorted_codes)]))
+    return np.arange(len(sorted_codes)) - run_start
+
+
+def _group_median(codes: np.ndarray, values: np.ndarray, groups: int) -> np.ndarray:
+    """Median of ``values`` per group code (NaN for groups without values)."""
+    median = np.full(groups, np.nan)
+    if not len(codes):
+        return median
+    order = np.lexsort((values, codes))
+    codes, values = codes[order], values[order]
+    sizes = np.bincount(codes, minlength=groups)
+    starts = np.concatenate([[0], np.cumsum(sizes)[:-1]])
+    present = sizes > 0
+    low = starts[present] + (sizes[present] - 1) // 2
+    high = starts[present] + sizes[present] // 2
+    median[present] = 0.5 * (values[low] + values[high])
+    return median
+
+
+class GroupAccumulator:
+    """Pass 1: per-group counts and samples of every variable the group rules need."""
+
+    def __init__(self, variables: Mapping[str, GroupVariable],
+                 sample_size: int = SAMPLE_SIZE) -> None:
+        self.variables = dict(variables)
+        self.samples = {name: _BottomSample(sample_size) for name in self.variables}
+
+    def add(self, batch: StarBatch) -> None:
+        """Add one batch (it must carry group codes)."""
+        codes = batch.group_codes
+        hashes = row_hash(np.arange(batch.first_row, batch.first_row + len(codes)))
+        for name, variable in self.variables.items():
+            self.samples[name].add(codes, hashes, np.asarray(variable(batch), dtype=float))
+
+    def finish(self, groups: int) -> dict[str, GroupSummary]:
+        """Statistics by variable, for ``groups`` group codes."""
+        return {name: sample.summary(groups) for name, sample in self.samples.items()}
+
+
+def group_labels_at(column: pa.Array, rows: np.ndarray) -> list[str]:
+    """The group labels of the given rows as text, for messages."""
+    return [str(v) for v in pc.take(column, pa.array(rows, type=pa.int64())).to_pylist()]
