@@ -63,6 +63,7 @@ class RuleStats:
     skipped: int = 0
     not_applicable: int = 0
     flagged: int = 0
+    escalated: int = 0
     assumed_errors: set[str] = field(default_factory=set)
     examples: list[dict[str, Any]] = field(default_factory=list)
 
@@ -72,6 +73,7 @@ class RuleStats:
         self.skipped += tally.skipped
         self.not_applicable += tally.not_applicable
         self.flagged += tally.flagged
+        self.escalated += tally.escalated
         self.assumed_errors.update(tally.assumed_errors)
         room = EXAMPLES_PER_RULE - len(self.examples)
         if room > 0 and tally.flagged and flags is not None:
@@ -91,6 +93,8 @@ class RuleStats:
             "not_applicable": self.not_applicable,
             "flagged": self.flagged,
         }
+        if self.rule.check.escalates:
+            entry["flagged_as_error"] = self.escalated
         if self.rule.check.uses_errors:
             entry["assumed_errors"] = sorted(self.assumed_errors)
         return entry
@@ -120,6 +124,7 @@ class RuleTally:
     not_applicable: int
     flagged: int
     assumed_errors: list[str]
+    escalated: int = 0
 
 
 @dataclass
@@ -208,17 +213,16 @@ class BatchChecker:
     def check(self, stars: StarBatch) -> BatchResult:
         """Counts per rule and the batch's flags sorted by (row, rule order)."""
         outcomes = self.schema.validate(stars) if self.schema else {}
-        tallies, tables, flagging = [], [], []
+        tallies, tables = [], []
         for rule in self.rules:
             outcome = outcomes.get(rule.id) or rule.check.evaluate(stars, rule.params)
             tally, table = _tally(rule, stars, outcome)
             tallies.append(tally)
             if table is not None:
                 tables.append(table)
-                flagging.append(rule)
         result = BatchResult(stars.size, tallies)
         if tables:
-            result.flags, result.rank = _merge(tables, flagging)
+            result.flags, result.rank = _merge(tables)
         return result
 
 
@@ -235,7 +239,12 @@ def _tally(rule: Rule, stars: StarBatch, outcome: Outcome) -> tuple[RuleTally, p
     tally = RuleTally(checked, stars.size - checked, not_applicable, len(positions), assumed)
     if not len(positions):
         return tally, None
-    table = flag_records(rule.id, rule.severity, stars.first_row, positions, stars.ids,
+    severity = np.full(len(positions), rule.severity, dtype=object)
+    if outcome.beyond_doubt is not None and rule.severity != "error":
+        escalate = outcome.beyond_doubt[positions]
+        severity[escalate] = "error"
+        tally.escalated = int(escalate.sum())
+    table = flag_records(rule.id, severity, stars.first_row, positions, stars.ids,
                          outcome.describe(positions), outcome.observed, outcome.expected,
                          outcome.deviation)
     return tally, table
@@ -253,17 +262,18 @@ def _assumed_errors(needs: Sequence[str], stars: StarBatch, available: np.ndarra
     return assumed
 
 
-def _merge(tables: list[pa.Table], rules: Sequence[Rule]) -> tuple[pa.Table, np.ndarray]:
+def _merge(tables: list[pa.Table]) -> tuple[pa.Table, np.ndarray]:
     """One batch's flags sorted by (row, rule order), and the severity rank of each flag.
 
-    ``tables[i]`` holds the flags of ``rules[i]`` (in rule order); rule order and severity
-    are constant per table, so no per-flag Python work is needed.
+    ``tables`` holds one table per rule, in rule order.
     """
     flags = pa.concat_tables(tables)
     sizes = [t.num_rows for t in tables]
     rule_order = np.repeat(np.arange(len(tables)), sizes)
-    rank = np.repeat(np.array([SEVERITY_RANK[r.severity] for r in rules], dtype=np.int8),
-                     sizes)
+    rank = np.zeros(flags.num_rows, dtype=np.int8)
+    for name, value in SEVERITY_RANK.items():
+        if value:
+            rank[pc.equal(flags["severity"], name).to_numpy(zero_copy_only=False)] = value
     order = np.lexsort((rule_order, flags["row"].to_numpy()))
     return flags.take(pa.array(order)), rank[order]
 

@@ -26,10 +26,14 @@ def empty_flags() -> pa.Table:
     return FLAG_SCHEMA.empty_table()
 
 
-def flag_records(rule_id: str, severity: str, first_row: int, positions: np.ndarray,
+def flag_records(rule_id: str, severity: str | np.ndarray, first_row: int,
+                 positions: np.ndarray,
                  ids: pa.Array, messages: Sequence[str], observed: np.ndarray | None,
                  expected: np.ndarray | None, deviation: np.ndarray | None) -> pa.Table:
-    """Flag records of one rule for the given positions within a batch."""
+    """Flag records of one rule for the given positions within a batch.
+
+    ``severity`` is the rule's, or one per position where a check escalates some flags.
+    """
     n = len(positions)
 
     def pick(values: np.ndarray | None) -> np.ndarray:
@@ -42,7 +46,7 @@ def flag_records(rule_id: str, severity: str, first_row: int, positions: np.ndar
             pa.array(positions.astype(np.int64) + first_row, pa.int64()),
             ids.take(pa.array(positions)),
             pa.array(np.full(n, rule_id, dtype=object), pa.string()),
-            pa.array(np.full(n, severity, dtype=object), pa.string()),
+            pa.array(np.broadcast_to(np.asarray(severity, dtype=object), (n,)), pa.string()),
             pa.array(messages, pa.string()),
             pa.array(pick(observed), pa.float64()),
             pa.array(pick(expected), pa.float64()),

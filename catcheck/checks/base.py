@@ -48,6 +48,9 @@ class Outcome:
     expected: np.ndarray | None = None
     deviation: np.ndarray | None = None
     applies: np.ndarray | None = None
+    #: rows so far off that no real star explains them: their flags become errors even
+    #: when the rule's severity is warning (checks that do this set Check.escalates)
+    beyond_doubt: np.ndarray | None = None
 
 
 @dataclass(frozen=True)
@@ -61,6 +64,7 @@ class Check:
     #: param name -> default value; a type (``float``, ``str``) marks a required param
     defaults: Mapping[str, Any] = field(default_factory=dict)
     uses_errors: bool = True
+    escalates: bool = False
     #: for group rules: the per-group statistics the check reads in pass 2, by name; the
     #: engine aggregates them over the whole catalogue in pass 1 (see catcheck.groups)
     group_variables: Mapping[str, GroupVariable] = field(default_factory=dict)
