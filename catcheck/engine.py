@@ -195,7 +195,7 @@ def _group_pass(rules: Sequence[Rule], batches: Callable[[], Iterator[StarBatch]
 def _prepare(rule: Rule, profile: Profile) -> RuleStats:
     stats = RuleStats(rule)
     missing = [q for q in rule.needs if not profile.provides(q)]
-    if rule.check.group_variables and not profile.group_column:
+    if (rule.check.group_variables or rule.check.needs_group) and not profile.group_column:
         missing.append("group")
     if missing:
         stats.status = f"not-run: missing {', '.join(missing)}"

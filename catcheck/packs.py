@@ -25,7 +25,7 @@ from catcheck.quantities import QUANTITIES
 
 SEVERITIES = ("error", "warning", "info")
 SEVERITY_RANK = {"info": 0, "warning": 1, "error": 2}
-DEFAULT_PACKS = ("core",)
+DEFAULT_PACKS = ("core", "evolution", "clusters")
 
 _RULE_ID = re.compile(r"^[a-z][a-z0-9]*(-[a-z0-9]+)*$")
 _PACK_KEYS = ("name", "description")

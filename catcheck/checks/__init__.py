@@ -5,6 +5,7 @@ from __future__ import annotations
 from catcheck.checks import (
     cluster_members,
     eddington,
+    evolution,
     mass_limits,
     ms_mass_luminosity,
     parallax_distance,
@@ -30,5 +31,10 @@ CHECKS: dict[str, Check] = {
         cluster_members.PARALLAX_CHECK,
         cluster_members.METALLICITY_CHECK,
         cluster_members.AGE_CHECK,
+        evolution.MS_LIFETIME,
+        evolution.EVOLVED_TOO_YOUNG,
+        evolution.PMS_TOO_OLD,
+        evolution.WHITE_DWARF_TOO_YOUNG,
+        evolution.BLUE_STRAGGLER,
     )
 }

@@ -65,6 +65,7 @@ class Check:
     defaults: Mapping[str, Any] = field(default_factory=dict)
     uses_errors: bool = True
     escalates: bool = False
+    needs_group: bool = False
     #: for group rules: the per-group statistics the check reads in pass 2, by name; the
     #: engine aggregates them over the whole catalogue in pass 1 (see catcheck.groups)
     group_variables: Mapping[str, GroupVariable] = field(default_factory=dict)

@@ -1,0 +1,337 @@
+"""Evolution checks: is a star's phase possible for its mass, metallicity and age?
+
+``ms_lifetime``, ``evolved_too_young``, ``pms_too_old``, ``white_dwarf_too_young`` and
+``blue_straggler_candidate`` compare a catalogued age with timescales from PARSEC v1.2S
+(:mod:`catcheck.physics.evolution`) in combined sigma of log age: the age error, the
+lifetime's sensitivity to the mass error, and the models' own uncertainty.  Flags a real
+star can explain (blue stragglers, binaries) stay warnings; those beyond ``error_threshold``
+sigma become errors.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable
+
+import numpy as np
+
+from catcheck.canonical import StarBatch
+from catcheck.checks.base import (
+    Check,
+    Documentation,
+    Outcome,
+    Params,
+    at_rows,
+    combined_sigma,
+    fixed_needs,
+    phase_is,
+)
+from catcheck.physics import evolution
+from catcheck.physics.stellar import LN10
+
+#: post-main-sequence phases whose present mass bounds the initial mass well enough
+#: (mass lost on the giant branches of low-mass stars is a few tenths of a solar mass)
+GIANT_PHASES = ("SGB", "RGB", "RC", "HB", "CHEB")
+#: every phase after the main sequence
+EVOLVED_PHASES = (*GIANT_PHASES, "AGB", "PAGB", "WD", "RSG", "BSG", "WR")
+_STEP = 1.01  # relative mass step for the numerical slope d log t / d log M
+
+
+def metallicity(batch: StarBatch) -> np.ndarray:
+    """[M/H] of each row, solar (0) where the catalogue gives none."""
+    feh = batch.values.get("feh")
+    return np.zeros(batch.size) if feh is None else np.where(np.isnan(feh), 0.0, feh)
+
+
+def lifetime_mass(batch: StarBatch) -> tuple[np.ndarray, np.ndarray]:
+    """The mass to use for lifetimes, and whether it is the catalogued initial mass."""
+    initial = batch.values.get("initial_mass")
+    present = batch.values["mass"]
+    if initial is None:
+        return present, np.zeros(batch.size, dtype=bool)
+    given = ~np.isnan(initial)
+    return np.where(given, initial, present), given
+
+
+def log_time_and_slope(timescale: Callable[[np.ndarray, np.ndarray], np.ndarray],
+                       mass: np.ndarray, feh: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """log10 of a timescale at ``mass`` and its slope d log t / d log M (numerical)."""
+    with np.errstate(divide="ignore", invalid="ignore"):
+        log_t = timescale(mass, feh)
+        slope = (timescale(mass * _STEP, feh) - timescale(mass / _STEP, feh)) / (
+            2.0 * np.log10(_STEP))
+    return log_t, slope
+
+
+def _age_sigma(batch: StarBatch, params: Params, slope: np.ndarray | float = 0.0
+               ) -> np.ndarray:
+    """Combined 1-sigma (dex) of log age against log timescale."""
+    s_age = batch.log_sigma("age", params["assumed_age_dex"])
+    s_mass = batch.log_sigma("mass", params["assumed_mass_fraction"] / LN10)
+    return combined_sigma(s_age, np.abs(slope) * s_mass, params["intrinsic_dex"],
+                          floor=params["floor_dex"])
+
+
+def _age_outcome(batch: StarBatch, params: Params, applies: np.ndarray, log_limit: np.ndarray,
+                 sigma: np.ndarray, older: bool, describe_row: Callable[..., str],
+                 extra: tuple[np.ndarray, ...] = ()) -> Outcome:
+    """Outcome of 'age beyond a timescale': older (or younger) than ``log_limit``."""
+    log_age = batch.log10("age")
+    excess = (log_age - log_limit) if older else (log_limit - log_age)
+    with np.errstate(invalid="ignore"):
+        deviation = excess / sigma
+        failed = applies & (deviation > params["threshold"])
+        beyond = deviation > params.get("error_threshold", np.inf)
+
+    def describe(rows: np.ndarray) -> list[str]:
+        return [describe_row(*values)
+                for values in at_rows(rows, 10.0 ** log_age, 10.0 ** log_limit, deviation,
+                                      *extra)]
+
+    return Outcome(failed, describe, log_age, log_limit, np.abs(deviation), applies, beyond)
+
+
+def _years(age: float) -> str:
+    """An age for a message, in Myr or Gyr."""
+    return f"{age / 1e9:.3g} Gyr" if age >= 1e9 else f"{age / 1e6:.3g} Myr"
+
+
+# --- ms-lifetime ---------------------------------------------------------------------------
+
+def evaluate_ms_lifetime(batch: StarBatch, params: Params) -> Outcome:
+    """Main-sequence stars older than the main-sequence lifetime of their mass."""
+    mass, _ = lifetime_mass(batch)
+    log_t, slope = log_time_and_slope(evolution.log_main_sequence_lifetime, mass,
+                                      metallicity(batch))
+    applies = phase_is(batch, "MS")
+    return _age_outcome(
+        batch, params, applies, log_t, _age_sigma(batch, params, slope), older=True,
+        describe_row=lambda age, limit, dev, m: (
+            f"MS star of {m:.3g} Msun is {_years(age)} old, but stars of that mass leave the "
+            f"main sequence at {_years(limit)}: {dev:.1f} sigma"),
+        extra=(mass,))
+
+
+# --- evolved-too-young ---------------------------------------------------------------------
+
+def evaluate_evolved_too_young(batch: StarBatch, params: Params) -> Outcome:
+    """Post-main-sequence stars younger than the main-sequence lifetime of their mass.
+
+    The initial mass is used where given; otherwise the present mass of a giant-branch or
+    core-helium-burning star, raised by the mass it may have lost, bounds the initial mass
+    from above, so the lifetime used is the shortest the star could have had.
+    """
+    mass, initial = lifetime_mass(batch)
+    upper = np.where(initial, mass, mass * (1.0 + params["mass_loss_fraction"])
+                     + params["mass_loss_msun"])
+    log_t, slope = log_time_and_slope(evolution.log_main_sequence_lifetime, upper,
+                                      metallicity(batch))
+    applies = phase_is(batch, *EVOLVED_PHASES) & (initial | phase_is(batch, *GIANT_PHASES))
+    return _age_outcome(
+        batch, params, applies, log_t, _age_sigma(batch, params, slope), older=False,
+        describe_row=lambda age, limit, dev, m: (
+            f"evolved star is {_years(age)} old, but a star of initial mass <= {m:.3g} Msun "
+            f"stays on the main sequence for {_years(limit)}: {dev:.1f} sigma too young"),
+        extra=(upper,))
+
+
+# --- pms-too-old ---------------------------------------------------------------------------
+
+def evaluate_pms_too_old(batch: StarBatch, params: Params) -> Outcome:
+    """Pre-main-sequence stars older than the contraction time of their mass."""
+    mass = batch.values["mass"]
+    log_t, slope = log_time_and_slope(evolution.log_pre_main_sequence_time, mass,
+                                      metallicity(batch))
+    applies = phase_is(batch, "PMS") & np.isfinite(log_t)
+    return _age_outcome(
+        batch, params, applies, log_t, _age_sigma(batch, params, slope), older=True,
+        describe_row=lambda age, limit, dev, m: (
+            f"pre-main-sequence star of {m:.3g} Msun is {_years(age)} old, but it reaches "
+            f"the main sequence at {_years(limit)}: {dev:.1f} sigma"),
+        extra=(mass,))
+
+
+# --- white-dwarf-too-young -----------------------------------------------------------------
+
+def evaluate_white_dwarf_too_young(batch: StarBatch, params: Params) -> Outcome:
+    """White dwarfs in populations younger than the most massive progenitor's lifetime."""
+    log_t = np.log10(evolution.youngest_white_dwarf_age(metallicity(batch),
+                                                       params["max_progenitor_mass"]))
+    sigma = combined_sigma(batch.log_sigma("age", params["assumed_age_dex"]),
+                           params["intrinsic_dex"], floor=params["floor_dex"])
+    return _age_outcome(
+        batch, params, phase_is(batch, "WD"), log_t, sigma, older=False,
+        describe_row=lambda age, limit, dev: (
+            f"white dwarf in a population {_years(age)} old, but even a "
+            f"{params['max_progenitor_mass']:g} Msun progenitor needs {_years(limit)} to "
+            f"make one: {dev:.1f} sigma"))
+
+
+# --- blue-straggler-candidate --------------------------------------------------------------
+
+def evaluate_blue_straggler(batch: StarBatch, params: Params) -> Outcome:
+    """Main-sequence cluster members more massive than their cluster's turn-off."""
+    mass = batch.values["mass"]
+    feh = metallicity(batch)
+    log_age = batch.log10("age")
+    turnoff = evolution.main_sequence_turnoff_mass(10.0 ** log_age, feh)
+    _, slope = log_time_and_slope(evolution.log_main_sequence_lifetime, turnoff, feh)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        s_turnoff = batch.log_sigma("age", params["assumed_age_dex"]) / np.abs(slope)
+        s_mass = batch.log_sigma("mass", params["assumed_mass_fraction"] / LN10)
+        sigma = combined_sigma(s_mass, s_turnoff, params["intrinsic_dex"],
+                               floor=params["floor_dex"])
+        deviation = (np.log10(mass) - np.log10(turnoff)) / sigma
+    in_cluster = batch.group_codes >= 0 if batch.group_codes is not None else np.zeros(
+        batch.size, dtype=bool)
+    applies = phase_is(batch, "MS") & in_cluster & np.isfinite(turnoff)
+    with np.errstate(invalid="ignore"):
+        failed = applies & (deviation > params["threshold"])
+
+    def describe(rows: np.ndarray) -> list[str]:
+        return [
+            f"MS member of {m:.3g} Msun is above its cluster's turn-off mass {t:.3g} Msun "
+            f"at {_years(a)}: {d:.1f} sigma (a blue straggler, a binary or a non-member)"
+            for m, t, a, d in at_rows(rows, mass, turnoff, 10.0 ** log_age, deviation)
+        ]
+
+    return Outcome(failed, describe, mass, turnoff, np.abs(deviation), applies)
+
+
+_AGE_CAVEAT = ("Stellar ages are model-dependent: grids differ by 10-25% in main-sequence "
+               "lifetime and rotation lengthens it by ~20% (hence intrinsic_dex).  Ages of "
+               "single field stars are often poorly constrained and their errors "
+               "understated.")
+_PARSEC = "Bressan et al. (2012), MNRAS 427, 127: PARSEC v1.2S isochrones (the timescales)"
+_DEFAULTS = {"threshold": 3.0, "error_threshold": 5.0, "intrinsic_dex": 0.08,
+             "floor_dex": 0.05, "assumed_age_dex": 0.1, "assumed_mass_fraction": 0.1}
+
+MS_LIFETIME = Check(
+    name="ms_lifetime",
+    needs=fixed_needs("age", "mass", "phase"),
+    evaluate=evaluate_ms_lifetime,
+    escalates=True,
+    doc=Documentation(
+        what="Flags a main-sequence star older than the main-sequence lifetime of its "
+        "(initial) mass at its metallicity.",
+        why="A star leaves the main sequence when its core hydrogen is exhausted; a star "
+        "still labelled main sequence past that age has a wrong mass, a wrong age (often a "
+        "cluster age copied to a non-member) or a wrong phase.",
+        formula="log t_MS(M, [M/H]) from PARSEC v1.2S (mass: initial_mass if given, else "
+        "the present mass; [M/H] solar if not given)\n"
+        "sigma^2 = s_logage^2 + (slope * s_logM)^2 + intrinsic_dex^2, slope = "
+        "d log t_MS / d log M\n"
+        "warning when log age - log t_MS > threshold * sigma; error beyond "
+        "error_threshold * sigma",
+        caveats="Blue stragglers (mergers and mass-transfer products) are main-sequence "
+        "stars more massive than their population's turn-off and look older than their "
+        "lifetime; unresolved binaries have overestimated masses. " + _AGE_CAVEAT,
+        example="A 5 Msun MS star (t_MS ~ 0.1 Gyr at solar [M/H]) catalogued at 2 Gyr "
+        "+- 0.1 dex with a 10% mass error: 1.3 dex over, sigma ~0.15 dex, ~9 sigma: an "
+        "error.  A 1.2 Msun star at 1.5x its lifetime (0.18 dex, ~1.3 sigma) is not "
+        "flagged.",
+        references=(_PARSEC,),
+    ),
+    defaults=dict(_DEFAULTS),
+)
+
+EVOLVED_TOO_YOUNG = Check(
+    name="evolved_too_young",
+    needs=fixed_needs("age", "mass", "phase"),
+    evaluate=evaluate_evolved_too_young,
+    escalates=True,
+    doc=Documentation(
+        what="Flags a post-main-sequence star (SGB, RGB, RC, HB, CHEB; AGB, post-AGB, white "
+        "dwarf and supergiants only where the initial mass is given) younger than the "
+        "main-sequence lifetime of its initial mass.",
+        why="A star cannot have left the main sequence before exhausting its core hydrogen.",
+        formula="initial mass M_i = initial_mass where given, else an upper bound from the "
+        "present mass: M (1 + mass_loss_fraction) + mass_loss_msun (stars lose mass on the "
+        "giant branches, ~0.1-0.3 Msun for low-mass stars)\n"
+        "sigma as for ms-lifetime; warning when log t_MS(M_i) - log age > threshold * "
+        "sigma; error beyond error_threshold * sigma",
+        caveats="Catalogue masses are usually present masses; AGB stars and white dwarfs "
+        "have lost so much mass that the present mass says nothing useful about the initial "
+        "one, so they are only checked when initial_mass is given.  Mass transfer in "
+        "binaries can make an evolved star whose present mass is misleading. "
+        + _AGE_CAVEAT,
+        example="An RGB star of initial mass 1.0 Msun (t_MS ~10 Gyr) in a 2 Gyr cluster: "
+        "0.7 dex younger than possible, sigma ~0.13 dex: 5.4 sigma, an error.",
+        references=(_PARSEC,),
+    ),
+    defaults=dict(_DEFAULTS, mass_loss_fraction=0.1, mass_loss_msun=0.3),
+)
+
+PMS_TOO_OLD = Check(
+    name="pms_too_old",
+    needs=fixed_needs("age", "mass", "phase"),
+    evaluate=evaluate_pms_too_old,
+    escalates=True,
+    doc=Documentation(
+        what="Flags a pre-main-sequence star older than the contraction time of its mass.",
+        why="Pre-main-sequence stars contract onto the zero-age main sequence in a time set "
+        "by their mass (~40 Myr at 1 Msun, ~1 Myr at 5 Msun); older than that the star "
+        "is on the main sequence and the label or the age is wrong.",
+        formula="log t_PMS(M, [M/H]): age at which the radius first reaches its ZAMS value "
+        "within 0.01 dex, from PARSEC v1.2S\n"
+        "sigma as for ms-lifetime with intrinsic_dex for the definition of 'arrival'; "
+        "warning beyond threshold sigma, error beyond error_threshold",
+        caveats="The end of contraction is gradual: stars near it are labelled either "
+        "way; magnetic activity and accretion history change contraction times; ages of "
+        "young stars carry large systematic errors. " + _AGE_CAVEAT,
+        example="A 1 Msun PMS star (t_PMS ~40 Myr) in a 1 Gyr cluster: 1.4 dex over: an "
+        "error.",
+        references=(_PARSEC,),
+    ),
+    defaults=dict(_DEFAULTS, intrinsic_dex=0.15),
+)
+
+WHITE_DWARF_TOO_YOUNG = Check(
+    name="white_dwarf_too_young",
+    needs=fixed_needs("age", "phase"),
+    evaluate=evaluate_white_dwarf_too_young,
+    doc=Documentation(
+        what="Flags a white dwarf in a population younger than the lifetime of the most "
+        "massive white-dwarf progenitor.",
+        why="A white dwarf is the end of a star's life: none can exist before the most "
+        "massive stars that make white dwarfs (~6-8 Msun) have finished evolving, some "
+        "40-60 Myr after star formation.",
+        formula="t_min = lifetime (main sequence and later phases) of a max_progenitor_mass "
+        "star, PARSEC v1.2S\n"
+        "flag when log t_min - log age > threshold * sigma, sigma^2 = s_logage^2 + "
+        "intrinsic_dex^2",
+        caveats="The maximum progenitor mass is uncertain (6-10 Msun); a white dwarf seen "
+        "towards a young cluster can be a field star (a non-member).",
+        example="A white dwarf in a 10 Myr cluster: t_min ~50 Myr, 0.7 dex too young, "
+        "sigma 0.13 dex: 5.4 sigma.",
+        references=(_PARSEC, "Maximum white-dwarf progenitor mass ~6-8 Msun, e.g. "
+                    "Cummings et al. (2018), ApJ 866, 21 (from memory)"),
+    ),
+    defaults={"threshold": 3.0, "intrinsic_dex": 0.1, "floor_dex": 0.05,
+              "assumed_age_dex": 0.1, "max_progenitor_mass": 8.0},
+)
+
+BLUE_STRAGGLER = Check(
+    name="blue_straggler_candidate",
+    needs=fixed_needs("age", "mass", "phase"),
+    evaluate=evaluate_blue_straggler,
+    needs_group=True,
+    doc=Documentation(
+        what="Marks a main-sequence cluster member more massive than its cluster's "
+        "turn-off mass.",
+        why="In a coeval cluster no single main-sequence star can be more massive than the "
+        "turn-off; those that are are blue stragglers (mergers, mass transfer), unresolved "
+        "binaries with overestimated masses, or non-members.",
+        formula="M_TO(age, [M/H]): the initial mass whose PARSEC v1.2S main-sequence "
+        "lifetime equals the age\n"
+        "sigma^2 = s_logM^2 + (s_logage / slope)^2 + intrinsic_dex^2\n"
+        "flag when log M - log M_TO > threshold * sigma (members of a group only)",
+        caveats="Always a warning, never an error: blue stragglers are real and common in "
+        "old clusters; this rule finds candidates, it does not reject them.",
+        example="A 2.5 Msun MS member of a 1 Gyr cluster (turn-off ~2.1 Msun) with a 5% "
+        "mass error: 0.076 dex above, sigma ~0.04 dex: 1.9 sigma, not flagged; at "
+        "3.5 Msun it is 5.6 sigma above and is marked.",
+        references=(_PARSEC,),
+    ),
+    defaults={"threshold": 3.0, "intrinsic_dex": 0.02, "floor_dex": 0.01,
+              "assumed_age_dex": 0.1, "assumed_mass_fraction": 0.1},
+)
