@@ -4,6 +4,7 @@ from __future__ import annotations
 
 from catcheck.checks import (
     cluster_members,
+    cluster_turnoff,
     eddington,
     evolution,
     mass_limits,
@@ -36,5 +37,6 @@ CHECKS: dict[str, Check] = {
         evolution.PMS_TOO_OLD,
         evolution.WHITE_DWARF_TOO_YOUNG,
         evolution.BLUE_STRAGGLER,
+        cluster_turnoff.CHECK,
     )
 }

@@ -1,0 +1,108 @@
+"""Fixtures for the evolution and cluster turn-off rules: rows that pass and rows that fail.
+
+Lifetimes come from the shipped PARSEC v1.2S table; its accuracy against the grid is tested
+in test_evolution_physics.py.  Facts of the trade used here (common practice): the Sun's
+main-sequence lifetime is about 10 Gyr; a 5 Msun star lives about 0.1 Gyr.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pandas as pd
+import pytest
+
+import catcheck
+from catcheck.physics.evolution import log_main_sequence_lifetime
+from catcheck.profile import profile_from_dict
+
+PROFILE = {
+    "id": "name",
+    "group": "cluster",
+    "quantities": {
+        "mass": {"column": "mass", "unit": "Msun", "error_value": 0.05},
+        "initial_mass": {"column": "mass0", "unit": "Msun"},
+        "age": {"column": "age", "unit": "Gyr"},
+        "feh": {"column": "feh", "unit": "dex"},
+        "phase": {"column": "phase"},
+    },
+}
+
+
+def run(rows: list[dict], rule_id: str) -> tuple[pd.DataFrame, dict]:
+    frame = pd.DataFrame(rows)
+    for column, default in (("mass0", np.nan), ("feh", 0.0), ("cluster", None)):
+        if column not in frame:
+            frame[column] = default
+    frame.insert(0, "name", [f"s{i}" for i in range(len(frame))])
+    result = catcheck.check_frame(frame, profile_from_dict(PROFILE),
+                                  rules=["evolution", "clusters"])
+    counts = next(r for r in result.summary["rules"] if r["id"] == rule_id)
+    return result.flags[result.flags["rule"] == rule_id], counts
+
+
+def test_ms_lifetime_warns_and_escalates() -> None:
+    flags, counts = run([
+        {"mass": 1.0, "age": 4.6, "phase": "MS"},    # the Sun
+        {"mass": 5.0, "age": 2.0, "phase": "MS"},    # 20x its ~0.1 Gyr lifetime: error
+        {"mass": 1.4, "age": 8.0, "phase": "MS"},    # ~2.5x: a blue-straggler-like warning
+        {"mass": 5.0, "age": 2.0, "phase": "RGB"},   # not on the main sequence
+    ], "ms-lifetime")
+    assert dict(zip(flags["row"], flags["severity"], strict=True)) == {1: "error",
+                                                                      2: "warning"}
+    assert counts["flagged_as_error"] == 1 and counts["not_applicable"] == 1
+
+
+def test_evolved_too_young_uses_initial_mass_or_a_bound() -> None:
+    flags, counts = run([
+        {"mass": 0.9, "mass0": 1.0, "age": 2.0, "phase": "RGB"},   # 1 Msun giant at 2 Gyr
+        {"mass": 0.9, "mass0": 1.0, "age": 11.0, "phase": "RGB"},  # a normal old giant
+        {"mass": 0.9, "age": 11.0, "phase": "RC"},                 # present mass only: ok
+        {"mass": 0.6, "age": 0.5, "phase": "WD"},                  # WD, no initial mass
+    ], "evolved-too-young")
+    assert flags["row"].tolist() == [0]
+    assert counts["not_applicable"] == 1
+
+
+def test_pms_too_old() -> None:
+    flags, _ = run([
+        {"mass": 1.0, "age": 0.01, "phase": "PMS"},
+        {"mass": 1.0, "age": 1.0, "phase": "PMS"},  # contraction ends at ~40 Myr
+    ], "pms-too-old")
+    assert flags["row"].tolist() == [1]
+
+
+def test_white_dwarf_too_young() -> None:
+    flags, _ = run([
+        {"mass": 0.6, "age": 0.010, "phase": "WD"},  # a WD in a 10 Myr cluster
+        {"mass": 0.6, "age": 1.0, "phase": "WD"},
+    ], "white-dwarf-too-young")
+    assert flags["row"].tolist() == [0]
+    assert flags.iloc[0]["severity"] == "error"
+
+
+def test_blue_straggler_candidate_is_only_a_warning_and_needs_a_cluster() -> None:
+    flags, counts = run([
+        {"mass": 1.5, "age": 1.0, "phase": "MS", "cluster": "C-1"},
+        {"mass": 3.5, "age": 1.0, "phase": "MS", "cluster": "C-1"},  # above a ~2.1 turn-off
+        {"mass": 3.5, "age": 1.0, "phase": "MS"},                    # field star
+    ], "blue-straggler-candidate")
+    assert flags["row"].tolist() == [1]
+    assert set(flags["severity"]) == {"warning"}
+    assert counts["not_applicable"] == 1
+
+
+@pytest.mark.parametrize(("giant_mass", "flagged"), [(3.0, True), (None, False)])
+def test_cluster_turnoff_age(giant_mass: float | None, flagged: bool) -> None:
+    age_gyr = 2.0
+    if giant_mass is None:  # giants whose lifetime matches the cluster's age
+        grid = np.linspace(1.0, 3.0, 2001)
+        giant_mass = float(grid[np.argmin(np.abs(
+            log_main_sequence_lifetime(grid, np.zeros_like(grid)) - np.log10(age_gyr * 1e9)))])
+    rows = [{"mass": giant_mass, "mass0": giant_mass, "age": age_gyr, "phase": "RGB",
+             "cluster": "C-7"} for _ in range(5)]
+    rows += [{"mass": 1.0, "age": age_gyr, "phase": "MS", "cluster": "C-7"}]
+    flags, counts = run(rows, "cluster-turnoff-age")
+    assert (len(flags) == 5) is flagged
+    assert counts["checked"] == 5
+    if flagged:
+        assert "cluster C-7" in flags.iloc[0]["message"]
