@@ -7,7 +7,8 @@ absolute deviation).  Memory grows with the number of groups, not of rows.
 
 The sample of a group is its ``SAMPLE_SIZE`` members with the smallest hash of their row
 number (a bottom-k sample): it does not depend on batch size, file split or worker count,
-and it is exact for groups no larger than the sample.
+and it is exact for groups no larger than the sample (the median of a 512-member sample
+of a normal distribution is within 0.055 sigma of the group's, one standard error).
 """
 
 from __future__ import annotations
@@ -17,10 +18,13 @@ from dataclasses import dataclass
 from typing import TYPE_CHECKING
 
 import numpy as np
+import pandas as pd
 import pyarrow as pa
 import pyarrow.compute as pc
 
-SAMPLE_SIZE = 1024
+SAMPLE_SIZE = 512
+#: pending sample entries (per variable) that trigger a merge
+_MERGE_AT = 1 << 20
 #: 1.4826 x MAD estimates the standard deviation of a normal distribution
 MAD_TO_SIGMA = 1.4826
 NO_GROUP = -1
@@ -95,7 +99,12 @@ class GroupSummary:
 
 
 class _BottomSample:
-    """Per group, the values of the ``size`` members with the smallest row hash."""
+    """Per group, the values of the ``size`` members with the smallest row hash.
+
+    New values wait in a pending list and are merged (sorted, cut to ``size`` per group)
+    only when the pending part outgrows the kept part, so the work stays O(n log n) over a
+    run and memory stays below about groups x size x 2 entries.
+    """
 
     def __init__(self, size: int) -> None:
         self.size = size
@@ -104,6 +113,8 @@ class _BottomSample:
         self.values = np.empty(0, dtype=float)
         self.counts = np.zeros(0, dtype=np.int64)
         self.cutoff = np.empty(0, dtype=np.uint64)  # largest kept hash of a full group
+        self.pending: list[tuple[np.ndarray, np.ndarray, np.ndarray]] = []
+        self.pending_size = 0
 
     def add(self, codes: np.ndarray, hashes: np.ndarray, values: np.ndarray) -> None:
         keep = (codes >= 0) & ~np.isnan(values)
@@ -113,16 +124,32 @@ class _BottomSample:
         self._grow(int(codes.max()) + 1)
         self.counts += np.bincount(codes, minlength=len(self.counts))
         below = hashes < self.cutoff[codes]
-        codes = np.concatenate([self.codes, codes[below]])
-        hashes = np.concatenate([self.hashes, hashes[below]])
-        values = np.concatenate([self.values, values[below]])
-        order = np.lexsort((hashes, codes))
-        codes, hashes, values = codes[order], hashes[order], values[order]
-        rank = _rank_within(codes)
-        kept = rank < self.size
-        self.codes, self.hashes, self.values = codes[kept], hashes[kept], values[kept]
-        full = np.flatnonzero(rank == self.size - 1)
-        self.cutoff[codes[full]] = hashes[full]
+        self.pending.append((codes[below], hashes[below], values[below]))
+        self.pending_size += int(below.sum())
+        if self.pending_size > max(_MERGE_AT, len(self.codes)):
+            self._merge()
+
+    def _merge(self) -> None:
+        if not self.pending:
+            return
+        codes = np.concatenate([self.codes, *(p[0] for p in self.pending)])
+        hashes = np.concatenate([self.hashes, *(p[1] for p in self.pending)])
+        values = np.concatenate([self.values, *(p[2] for p in self.pending)])
+        self.pending, self.pending_size = [], 0
+        crowded = self.counts[codes] > self.size  # only these groups need cutting
+        if crowded.any():
+            small = ~crowded
+            order = np.lexsort((hashes[crowded], codes[crowded]))
+            big_codes = codes[crowded][order]
+            big_hashes, big_values = hashes[crowded][order], values[crowded][order]
+            rank = _rank_within(big_codes)
+            kept = rank < self.size
+            full = np.flatnonzero(rank == self.size - 1)
+            self.cutoff[big_codes[full]] = big_hashes[full]
+            codes = np.concatenate([codes[small], big_codes[kept]])
+            hashes = np.concatenate([hashes[small], big_hashes[kept]])
+            values = np.concatenate([values[small], big_values[kept]])
+        self.codes, self.hashes, self.values = codes, hashes, values
 
     def _grow(self, groups: int) -> None:
         extra = groups - len(self.counts)
@@ -132,6 +159,7 @@ class _BottomSample:
                 [self.cutoff, np.full(extra, np.iinfo(np.uint64).max, dtype=np.uint64)])
 
     def summary(self, groups: int) -> GroupSummary:
+        self._merge()
         self._grow(groups)
         median = _group_median(self.codes, self.values, groups)
         deviation = np.abs(self.values - median[self.codes])
@@ -149,16 +177,9 @@ def _rank_within(sorted_codes: np.ndarray) -> np.ndarray:
 def _group_median(codes: np.ndarray, values: np.ndarray, groups: int) -> np.ndarray:
     """Median of ``values`` per group code (NaN for groups without values)."""
     median = np.full(groups, np.nan)
-    if not len(codes):
-        return median
-    order = np.lexsort((values, codes))
-    codes, values = codes[order], values[order]
-    sizes = np.bincount(codes, minlength=groups)
-    starts = np.concatenate([[0], np.cumsum(sizes)[:-1]])
-    present = sizes > 0
-    low = starts[present] + (sizes[present] - 1) // 2
-    high = starts[present] + sizes[present] // 2
-    median[present] = 0.5 * (values[low] + values[high])
+    if len(codes):
+        by_group = pd.Series(values).groupby(codes, sort=False).median()
+        median[by_group.index.to_numpy()] = by_group.to_numpy()
     return median
 
 

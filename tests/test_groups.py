@@ -64,8 +64,8 @@ def test_bottom_sample_of_large_group_is_bounded_and_independent_of_batching() -
         sample = _BottomSample(256)
         for chunk in np.array_split(np.arange(n), pieces):
             sample.add(codes[chunk], row_hash(chunk), values[chunk])
-        assert len(sample.values) == 256
         summaries.append(sample.summary(1))
+        assert len(sample.values) == 256  # the group's sample is cut to its size
     assert summaries[0].median == summaries[1].median == summaries[2].median
     assert summaries[0].count[0] == n
     # a 256-member sample of a unit normal: median within 4 standard errors (1.2533/16)
