@@ -155,11 +155,11 @@ def run_rules(catalogue: Catalogue, profile: Profile, rules: Sequence[Rule], sin
     stats.rows_by_severity = dict.fromkeys(SEVERITY_RANK, 0)
     stats.flags_by_severity = dict.fromkeys(SEVERITY_RANK, 0)
 
-    def converted() -> Iterator[StarBatch]:
-        for first_row, batch in catalogue.batches(profile.columns, batch_rows):
-            yield canonical_batch(profile, batch, first_row, labels)
+    def converted(reading: Profile = profile) -> Iterator[StarBatch]:
+        for first_row, batch in catalogue.batches(reading.columns, batch_rows):
+            yield canonical_batch(reading, batch, first_row, labels)
 
-    group_stats = _group_pass(checker.rules, converted, labels) if profile.group_column else {}
+    group_stats = _group_pass(checker.rules, profile, converted, labels)
     labels.phases.unmapped.clear()  # pass 2 counts the labels again
 
     def with_group_stats(stars: StarBatch) -> BatchResult:
@@ -179,15 +179,22 @@ def run_rules(catalogue: Catalogue, profile: Profile, rules: Sequence[Rule], sin
     return stats
 
 
-def _group_pass(rules: Sequence[Rule], batches: Callable[[], Iterator[StarBatch]],
+def _group_pass(rules: Sequence[Rule], profile: Profile,
+                batches: Callable[[Profile], Iterator[StarBatch]],
                 labels: Labels) -> dict[str, GroupSummary]:
-    """Pass 1: aggregate every group variable the rules need over the whole catalogue."""
-    variables = {name: variable for rule in rules
-                 for name, variable in rule.check.group_variables.items()}
-    if not variables:
+    """Pass 1: aggregate every group variable the rules need over the whole catalogue.
+
+    Only the columns of the quantities the group rules need are read.
+    """
+    group_rules = [rule for rule in rules if rule.check.group_variables]
+    if not group_rules or not profile.group_column:
         return {}
+    variables = {name: variable for rule in group_rules
+                 for name, variable in rule.check.group_variables.items()}
+    needed = {quantity for rule in group_rules for quantity in rule.needs}
+    needed |= {"initial_mass", "feh"}  # optional inputs of the lifetime relations
     accumulator = GroupAccumulator(variables)
-    for stars in prefetch(batches()):
+    for stars in prefetch(batches(profile.restricted_to(needed))):
         accumulator.add(stars)
     return accumulator.finish(len(labels.groups.code_of))
 

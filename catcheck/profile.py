@@ -10,7 +10,7 @@ from __future__ import annotations
 
 import difflib
 from collections.abc import Collection, Mapping
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from pathlib import Path
 from typing import Any
 
@@ -84,6 +84,11 @@ class Profile:
         return quantity in self.quantities or (
             self.groups is not None and quantity in self.groups.quantities
         )
+
+    def restricted_to(self, quantities: Collection[str]) -> Profile:
+        """The same profile mapping only ``quantities`` (for reads that need fewer columns)."""
+        return replace(self, quantities={name: mapping for name, mapping in
+                                         self.quantities.items() if name in quantities})
 
     def validate_columns(self, schema: pa.Schema, where: str) -> None:
         """Check every mapped column exists in ``schema`` and numeric ones hold numbers."""
