@@ -17,7 +17,7 @@ from catcheck.checks.base import (
     phase_is,
 )
 from catcheck.checks.cluster_members import MEDIAN_EFFICIENCY
-from catcheck.checks.evolution import GIANT_PHASES, lifetime_mass, metallicity
+from catcheck.checks.evolution import GIANT_PHASES, lifetime_mass, metallicity, on_rows
 from catcheck.groups import group_labels_at
 from catcheck.physics.evolution import log_main_sequence_lifetime
 
@@ -31,10 +31,10 @@ def implied_log_age(batch: StarBatch) -> np.ndarray:
     so the evolved members of a cluster date it.
     """
     mass, _ = lifetime_mass(batch)
-    evolved = phase_is(batch, *GIANT_PHASES)
-    with np.errstate(divide="ignore", invalid="ignore"):
-        log_t = log_main_sequence_lifetime(mass, metallicity(batch))
-    return np.where(evolved, log_t, np.nan)
+    evolved = np.flatnonzero(phase_is(batch, *GIANT_PHASES))
+    (log_t,) = on_rows(evolved, batch.size, lambda m, feh: (log_main_sequence_lifetime(m, feh),),
+                       mass, metallicity(batch))
+    return log_t
 
 
 def evaluate(batch: StarBatch, params: Params) -> Outcome:

@@ -33,7 +33,6 @@ from catcheck.physics.stellar import LN10
 GIANT_PHASES = ("SGB", "RGB", "RC", "HB", "CHEB")
 #: every phase after the main sequence
 EVOLVED_PHASES = (*GIANT_PHASES, "AGB", "PAGB", "WD", "RSG", "BSG", "WR")
-_STEP = 1.01  # relative mass step for the numerical slope d log t / d log M
 
 
 def metallicity(batch: StarBatch) -> np.ndarray:
@@ -52,14 +51,20 @@ def lifetime_mass(batch: StarBatch) -> tuple[np.ndarray, np.ndarray]:
     return np.where(given, initial, present), given
 
 
-def log_time_and_slope(timescale: Callable[[np.ndarray, np.ndarray], np.ndarray],
-                       mass: np.ndarray, feh: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """log10 of a timescale at ``mass`` and its slope d log t / d log M (numerical)."""
-    with np.errstate(divide="ignore", invalid="ignore"):
-        log_t = timescale(mass, feh)
-        slope = (timescale(mass * _STEP, feh) - timescale(mass / _STEP, feh)) / (
-            2.0 * np.log10(_STEP))
-    return log_t, slope
+def on_rows(rows: np.ndarray, size: int, function: Callable[..., tuple[np.ndarray, ...]],
+            *arrays: np.ndarray) -> tuple[np.ndarray, ...]:
+    """Evaluate ``function`` only at ``rows`` of ``arrays``; results NaN elsewhere.
+
+    Timescale lookups cost far more than the rest of a rule, and each rule concerns one
+    phase, often a small part of a catalogue.
+    """
+    results = function(*(a[rows] for a in arrays))
+    spread = []
+    for result in results:
+        full = np.full(size, np.nan)
+        full[rows] = result
+        spread.append(full)
+    return tuple(spread)
 
 
 def _age_sigma(batch: StarBatch, params: Params, slope: np.ndarray | float = 0.0
@@ -100,9 +105,10 @@ def _years(age: float) -> str:
 def evaluate_ms_lifetime(batch: StarBatch, params: Params) -> Outcome:
     """Main-sequence stars older than the main-sequence lifetime of their mass."""
     mass, _ = lifetime_mass(batch)
-    log_t, slope = log_time_and_slope(evolution.log_main_sequence_lifetime, mass,
-                                      metallicity(batch))
     applies = phase_is(batch, "MS")
+    log_t, slope = on_rows(np.flatnonzero(applies), batch.size,
+                           evolution.log_main_sequence_lifetime_and_slope, mass,
+                           metallicity(batch))
     return _age_outcome(
         batch, params, applies, log_t, _age_sigma(batch, params, slope), older=True,
         describe_row=lambda age, limit, dev, m: (
@@ -123,9 +129,10 @@ def evaluate_evolved_too_young(batch: StarBatch, params: Params) -> Outcome:
     mass, initial = lifetime_mass(batch)
     upper = np.where(initial, mass, mass * (1.0 + params["mass_loss_fraction"])
                      + params["mass_loss_msun"])
-    log_t, slope = log_time_and_slope(evolution.log_main_sequence_lifetime, upper,
-                                      metallicity(batch))
     applies = phase_is(batch, *EVOLVED_PHASES) & (initial | phase_is(batch, *GIANT_PHASES))
+    log_t, slope = on_rows(np.flatnonzero(applies), batch.size,
+                           evolution.log_main_sequence_lifetime_and_slope, upper,
+                           metallicity(batch))
     return _age_outcome(
         batch, params, applies, log_t, _age_sigma(batch, params, slope), older=False,
         describe_row=lambda age, limit, dev, m: (
@@ -139,9 +146,10 @@ def evaluate_evolved_too_young(batch: StarBatch, params: Params) -> Outcome:
 def evaluate_pms_too_old(batch: StarBatch, params: Params) -> Outcome:
     """Pre-main-sequence stars older than the contraction time of their mass."""
     mass = batch.values["mass"]
-    log_t, slope = log_time_and_slope(evolution.log_pre_main_sequence_time, mass,
-                                      metallicity(batch))
-    applies = phase_is(batch, "PMS") & np.isfinite(log_t)
+    log_t, slope = on_rows(np.flatnonzero(phase_is(batch, "PMS")), batch.size,
+                           evolution.log_pre_main_sequence_time_and_slope, mass,
+                           metallicity(batch))
+    applies = np.isfinite(log_t)
     return _age_outcome(
         batch, params, applies, log_t, _age_sigma(batch, params, slope), older=True,
         describe_row=lambda age, limit, dev, m: (
@@ -154,12 +162,14 @@ def evaluate_pms_too_old(batch: StarBatch, params: Params) -> Outcome:
 
 def evaluate_white_dwarf_too_young(batch: StarBatch, params: Params) -> Outcome:
     """White dwarfs in populations younger than the most massive progenitor's lifetime."""
-    log_t = np.log10(evolution.youngest_white_dwarf_age(metallicity(batch),
-                                                       params["max_progenitor_mass"]))
+    white_dwarfs = phase_is(batch, "WD")
+    (log_t,) = on_rows(np.flatnonzero(white_dwarfs), batch.size, lambda feh: (np.log10(
+        evolution.youngest_white_dwarf_age(feh, params["max_progenitor_mass"])),),
+        metallicity(batch))
     sigma = combined_sigma(batch.log_sigma("age", params["assumed_age_dex"]),
                            params["intrinsic_dex"], floor=params["floor_dex"])
     return _age_outcome(
-        batch, params, phase_is(batch, "WD"), log_t, sigma, older=False,
+        batch, params, white_dwarfs, log_t, sigma, older=False,
         describe_row=lambda age, limit, dev: (
             f"white dwarf in a population {_years(age)} old, but even a "
             f"{params['max_progenitor_mass']:g} Msun progenitor needs {_years(limit)} to "
@@ -171,19 +181,27 @@ def evaluate_white_dwarf_too_young(batch: StarBatch, params: Params) -> Outcome:
 def evaluate_blue_straggler(batch: StarBatch, params: Params) -> Outcome:
     """Main-sequence cluster members more massive than their cluster's turn-off."""
     mass = batch.values["mass"]
-    feh = metallicity(batch)
     log_age = batch.log10("age")
-    turnoff = evolution.main_sequence_turnoff_mass(10.0 ** log_age, feh)
-    _, slope = log_time_and_slope(evolution.log_main_sequence_lifetime, turnoff, feh)
+    in_cluster = batch.group_codes >= 0 if batch.group_codes is not None else np.zeros(
+        batch.size, dtype=bool)
+    candidates = np.flatnonzero(phase_is(batch, "MS") & in_cluster)
+
+    def turnoff_and_slope(age: np.ndarray, feh: np.ndarray) -> tuple[np.ndarray, ...]:
+        # cluster members share their cluster's age and [M/H]: solve once per pair
+        pairs, inverse = np.unique(age + 1j * feh, return_inverse=True)
+        turnoff = evolution.main_sequence_turnoff_mass(pairs.real, pairs.imag)
+        slope = evolution.log_main_sequence_lifetime_and_slope(turnoff, pairs.imag)[1]
+        return turnoff[inverse], slope[inverse]
+
+    turnoff, slope = on_rows(candidates, batch.size, turnoff_and_slope, 10.0 ** log_age,
+                             metallicity(batch))
     with np.errstate(divide="ignore", invalid="ignore"):
         s_turnoff = batch.log_sigma("age", params["assumed_age_dex"]) / np.abs(slope)
         s_mass = batch.log_sigma("mass", params["assumed_mass_fraction"] / LN10)
         sigma = combined_sigma(s_mass, s_turnoff, params["intrinsic_dex"],
                                floor=params["floor_dex"])
         deviation = (np.log10(mass) - np.log10(turnoff)) / sigma
-    in_cluster = batch.group_codes >= 0 if batch.group_codes is not None else np.zeros(
-        batch.size, dtype=bool)
-    applies = phase_is(batch, "MS") & in_cluster & np.isfinite(turnoff)
+    applies = np.isfinite(turnoff)
     with np.errstate(invalid="ignore"):
         failed = applies & (deviation > params["threshold"])
 
