@@ -106,3 +106,29 @@ def test_cluster_turnoff_age(giant_mass: float | None, flagged: bool) -> None:
     assert counts["checked"] == 5
     if flagged:
         assert "cluster C-7" in flags.iloc[0]["message"]
+
+
+def envelope_run(rows: list[dict]) -> pd.DataFrame:
+    frame = pd.DataFrame(rows)
+    frame.insert(0, "name", [f"s{i}" for i in range(len(frame))])
+    profile = profile_from_dict({"id": "name", "quantities": {
+        "teff": {"column": "teff", "unit": "K"},
+        "logg": {"column": "logg", "unit": "dex(cm/s2)", "error_value": 0.1},
+        "phase": {"column": "phase"}}})
+    flags = catcheck.check_frame(frame, profile, rules=["evolution"]).flags
+    return flags[flags["rule"] == "phase-envelope"]
+
+
+def test_phase_envelope_catches_mislabels_and_passes_real_stars() -> None:
+    flags = envelope_run([
+        {"teff": 5772.0, "logg": 4.44, "phase": "MS"},    # the Sun
+        {"teff": 4800.0, "logg": 2.5, "phase": "RGB"},    # a red giant
+        {"teff": 4800.0, "logg": 4.5, "phase": "RGB"},    # a dwarf labelled red giant
+        {"teff": 5000.0, "logg": 3.0, "phase": "MS"},     # a giant labelled main sequence
+        {"teff": 9000.0, "logg": 2.5, "phase": "RGB"},    # far too hot for a red giant
+        {"teff": 20000.0, "logg": 8.0, "phase": "WD"},    # a white dwarf
+        {"teff": 20000.0, "logg": 4.0, "phase": "WD"},    # a 'white dwarf' of giant size
+    ])
+    assert flags["row"].tolist() == [2, 3, 4, 6]
+    assert set(flags["severity"]) == {"error"}
+    assert "RGB envelope" in flags.iloc[0]["message"]

@@ -10,6 +10,7 @@ from catcheck.checks import (
     mass_limits,
     ms_mass_luminosity,
     parallax_distance,
+    phase_envelope,
     physical_range,
     spectral_type_teff,
     stefan_boltzmann,
@@ -37,6 +38,7 @@ CHECKS: dict[str, Check] = {
         evolution.PMS_TOO_OLD,
         evolution.WHITE_DWARF_TOO_YOUNG,
         evolution.BLUE_STRAGGLER,
+        phase_envelope.CHECK,
         cluster_turnoff.CHECK,
     )
 }
