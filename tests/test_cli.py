@@ -11,6 +11,8 @@ from factory import PROFILE_TOML, sun_like, write_catalogue
 
 
 def run(*args: str, cwd=None) -> subprocess.CompletedProcess:
+    if args and args[0] == "check" and "--rules" not in args:
+        args = (*args, "--rules", "core")  # about the command line, not the physics
     return subprocess.run([sys.executable, "-m", "catcheck", *map(str, args)],
                           capture_output=True, text=True, cwd=cwd, timeout=120)
 

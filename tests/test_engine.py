@@ -13,6 +13,9 @@ import catcheck
 from catcheck.profile import profile_from_dict
 from catcheck.toml import loads
 
+#: these tests are about the engine, not the physics: the core pack is enough
+CORE = ["core"]
+
 PROFILE = profile_from_dict(loads(PROFILE_TOML))
 
 
@@ -21,7 +24,7 @@ def stats(result: catcheck.CheckResult, rule_id: str) -> dict:
 
 
 def test_consistent_stars_give_no_flag() -> None:
-    result = catcheck.check_frame(sun_like(500), PROFILE)
+    result = catcheck.check_frame(sun_like(500), PROFILE, rules=CORE)
     assert result.flags.empty
     assert result.passed
     sb = stats(result, "stefan-boltzmann")
@@ -31,7 +34,7 @@ def test_consistent_stars_give_no_flag() -> None:
 def test_luminosity_offset_is_flagged_with_numbers() -> None:
     frame = sun_like(10)
     frame.loc[3, "logL"] += 0.5
-    result = catcheck.check_frame(frame, PROFILE)
+    result = catcheck.check_frame(frame, PROFILE, rules=CORE)
     flags = result.flags
     assert flags["row"].tolist() == [3]
     flag = flags.iloc[0]
@@ -48,14 +51,14 @@ def test_missing_values_are_skipped_never_flagged() -> None:
     frame.loc[[2, 5], "Rad"] = np.nan
     frame.loc[7, "Teff"] = None
     frame.loc[2, "logL"] += 3  # would fail, but radius is missing
-    result = catcheck.check_frame(frame, PROFILE)
+    result = catcheck.check_frame(frame, PROFILE, rules=CORE)
     sb = stats(result, "stefan-boltzmann")
     assert (sb["checked"], sb["skipped"], sb["flagged"]) == (17, 3, 0)
     assert stats(result, "teff-range")["skipped"] == 1
 
 
 def test_rule_without_quantities_is_reported_not_run() -> None:
-    result = catcheck.check_frame(sun_like(5), PROFILE)
+    result = catcheck.check_frame(sun_like(5), PROFILE, rules=CORE)
     mass = stats(result, "mass-range")
     assert mass["status"] == "not-run: missing mass"
     assert mass["checked"] == mass["flagged"] == 0
@@ -64,7 +67,7 @@ def test_rule_without_quantities_is_reported_not_run() -> None:
 def test_hard_limits_use_the_rows_own_error() -> None:
     frame = sun_like(4)
     frame["Age"] = [20.0, 14.0, 13.0, -1.0]  # Gyr; the profile gives no age error
-    result = catcheck.check_frame(frame, PROFILE)
+    result = catcheck.check_frame(frame, PROFILE, rules=CORE)
     flagged = result.flags.query("rule == 'age-range'")
     assert flagged["row"].tolist() == [0, 1, 3]
     assert "age of the Universe" in flagged.iloc[0]["message"]
@@ -73,7 +76,7 @@ def test_hard_limits_use_the_rows_own_error() -> None:
 def test_infinite_value_is_flagged_by_its_range_rule() -> None:
     frame = sun_like(3)
     frame.loc[1, "Teff"] = np.inf
-    result = catcheck.check_frame(frame, PROFILE)
+    result = catcheck.check_frame(frame, PROFILE, rules=CORE)
     assert set(result.flags.query("rule == 'teff-range'")["row"]) == {1}
 
 
@@ -81,9 +84,9 @@ def test_results_do_not_depend_on_batch_size() -> None:
     frame = sun_like(3000, seed=3)
     frame.loc[::97, "logL"] -= 0.8
     frame.loc[::131, "Age"] = 30.0
-    reference = catcheck.check_frame(frame, PROFILE, batch_rows=100_000)
+    reference = catcheck.check_frame(frame, PROFILE, batch_rows=100_000, rules=CORE)
     for batch_rows in (1000, 1001, 2999):
-        other = catcheck.check_frame(frame, PROFILE, batch_rows=batch_rows)
+        other = catcheck.check_frame(frame, PROFILE, batch_rows=batch_rows, rules=CORE)
         pd.testing.assert_frame_equal(reference.flags, other.flags)
         assert reference.summary["rules"] == other.summary["rules"]
         assert reference.summary["flagged_rows"] == other.summary["flagged_rows"]
@@ -94,7 +97,7 @@ def test_flags_sorted_by_row_then_rule_order() -> None:
     frame.loc[4, "logL"] += 1
     frame.loc[4, "Age"] = 40.0
     frame.loc[1, "Age"] = 40.0
-    flags = catcheck.check_frame(frame, PROFILE).flags
+    flags = catcheck.check_frame(frame, PROFILE, rules=CORE).flags
     assert list(zip(flags["row"], flags["rule"], strict=True)) == [
         (1, "age-range"), (4, "stefan-boltzmann"), (4, "age-range")]
 
@@ -120,7 +123,7 @@ def test_summary_counts_rows_by_worst_severity(tmp_path) -> None:
 def test_gate(fail_on: str, fraction: float | None, passed: bool) -> None:
     frame = sun_like(4)
     frame.loc[0, "logL"] += 1  # one row of four: 25% flagged
-    result = catcheck.check_frame(frame, PROFILE, fail_on=fail_on,
+    result = catcheck.check_frame(frame, PROFILE, rules=CORE, fail_on=fail_on,
                                   max_flagged_fraction=fraction)
     assert result.passed is passed
 
@@ -139,7 +142,7 @@ def test_unmapped_phase_labels_are_counted() -> None:
     frame = sun_like(6)
     frame.loc[[0, 1], "state"] = "weird"
     frame.loc[2, "state"] = "RGB"  # a phase code itself is accepted
-    result = catcheck.check_frame(frame, PROFILE)
+    result = catcheck.check_frame(frame, PROFILE, rules=CORE)
     assert result.summary["unmapped_phase_labels"] == {"weird": 2}
 
 
@@ -148,7 +151,7 @@ def test_report_files_written_atomically(tmp_path) -> None:
     frame.loc[10, "logL"] += 1
     path = write_catalogue(tmp_path, frame)
     out = tmp_path / "report"
-    result = catcheck.check(path, tmp_path / "profile.toml", out=out)
+    result = catcheck.check(path, tmp_path / "profile.toml", out=out, rules=CORE)
     assert sorted(p.name for p in out.iterdir()) == ["flags.parquet", "report.md",
                                                       "summary.json"]
     summary = json.loads((out / "summary.json").read_text())
@@ -163,8 +166,8 @@ def test_text_flag_formats_round_trip(tmp_path, flags_format: str) -> None:
     frame.loc[[3, 4], "logL"] += 1
     frame.loc[4, "Age"] = 50.0
     path = write_catalogue(tmp_path, frame)
-    parquet = catcheck.check(path, tmp_path / "profile.toml", out=tmp_path / "a").flags
-    text = catcheck.check(path, tmp_path / "profile.toml", out=tmp_path / "b",
+    parquet = catcheck.check(path, tmp_path / "profile.toml", CORE, out=tmp_path / "a").flags
+    text = catcheck.check(path, tmp_path / "profile.toml", CORE, out=tmp_path / "b",
                           flags_format=flags_format).flags
     assert (tmp_path / "b" / f"flags.{flags_format}").exists()
     pd.testing.assert_frame_equal(parquet, text, check_exact=False)
@@ -175,7 +178,7 @@ def test_output_is_deterministic(tmp_path) -> None:
     frame.loc[::7, "logL"] += 1
     path = write_catalogue(tmp_path, frame)
     for name in ("a", "b"):
-        catcheck.check(path, tmp_path / "profile.toml", out=tmp_path / name)
+        catcheck.check(path, tmp_path / "profile.toml", out=tmp_path / name, rules=CORE)
     for name in ("flags.parquet", "report.md"):
         assert (tmp_path / "a" / name).read_bytes() == (tmp_path / "b" / name).read_bytes()
     a, b = (json.loads((tmp_path / n / "summary.json").read_text()) for n in "ab")
@@ -187,21 +190,21 @@ def test_failed_run_keeps_previous_report(tmp_path) -> None:
     frame = sun_like(20)
     path = write_catalogue(tmp_path, frame)
     out = tmp_path / "report"
-    catcheck.check(path, tmp_path / "profile.toml", out=out)
+    catcheck.check(path, tmp_path / "profile.toml", out=out, rules=CORE)
     before = {p.name: p.read_bytes() for p in out.iterdir()}
     with pytest.raises(catcheck.errors.ProfileError):
         bad = tmp_path / "bad.toml"
         bad.write_text(PROFILE_TOML.replace('column = "Rad"', 'column = "Radius"'))
-        catcheck.check(path, bad, out=out)
+        catcheck.check(path, bad, out=out, rules=CORE)
     assert {p.name: p.read_bytes() for p in out.iterdir()} == before
 
 
 def test_assumed_errors_reported_when_some_rows_lack_them() -> None:
     frame = sun_like(4)
-    complete = catcheck.check_frame(frame, PROFILE)
+    complete = catcheck.check_frame(frame, PROFILE, rules=CORE)
     assert stats(complete, "stefan-boltzmann")["assumed_errors"] == []
     frame.loc[1, "e_logL"] = np.nan
-    partial = catcheck.check_frame(frame, PROFILE)
+    partial = catcheck.check_frame(frame, PROFILE, rules=CORE)
     assert stats(partial, "stefan-boltzmann")["assumed_errors"] == ["luminosity"]
 
 

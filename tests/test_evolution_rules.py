@@ -132,3 +132,8 @@ def test_phase_envelope_catches_mislabels_and_passes_real_stars() -> None:
     assert flags["row"].tolist() == [2, 3, 4, 6]
     assert set(flags["severity"]) == {"error"}
     assert "RGB envelope" in flags.iloc[0]["message"]
+
+
+def test_phase_envelope_flags_a_cool_dwarf_labelled_white_dwarf() -> None:
+    flags = envelope_run([{"teff": 3000.0, "logg": 5.0, "phase": "WD"}])
+    assert flags["row"].tolist() == [0]

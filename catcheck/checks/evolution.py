@@ -109,7 +109,8 @@ def evaluate_ms_lifetime(batch: StarBatch, params: Params) -> Outcome:
     log_t, slope = on_rows(np.flatnonzero(applies), batch.size,
                            evolution.log_main_sequence_lifetime_and_slope, mass,
                            metallicity(batch))
-    return _age_outcome(
+    applies &= np.isfinite(log_t)  # masses outside the table (0.1-199.5 Msun) are not
+    return _age_outcome(           # checked, and not counted as checked
         batch, params, applies, log_t, _age_sigma(batch, params, slope), older=True,
         describe_row=lambda age, limit, dev, m: (
             f"MS star of {m:.3g} Msun is {_years(age)} old, but stars of that mass leave the "
@@ -133,6 +134,7 @@ def evaluate_evolved_too_young(batch: StarBatch, params: Params) -> Outcome:
     log_t, slope = on_rows(np.flatnonzero(applies), batch.size,
                            evolution.log_main_sequence_lifetime_and_slope, upper,
                            metallicity(batch))
+    applies &= np.isfinite(log_t)
     return _age_outcome(
         batch, params, applies, log_t, _age_sigma(batch, params, slope), older=False,
         describe_row=lambda age, limit, dev, m: (

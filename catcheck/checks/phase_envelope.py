@@ -64,9 +64,10 @@ def evaluate(batch: StarBatch, params: Params) -> Outcome:
     range_low, range_high = _teff_ranges()
     known = batch.phase >= 0
     code = np.where(known, batch.phase, 0)
-    t_low = np.where(known, range_low[code], np.nan) - pad
-    t_high = np.where(known, range_high[code], np.nan) + pad
-    z_teff = excess_sigma(log_teff, combined_sigma(s_teff, floor=params["floor_dex"]),
+    teff_pad = params["teff_pad_dex"]
+    t_low = np.where(known, range_low[code], np.nan) - teff_pad
+    t_high = np.where(known, range_high[code], np.nan) + teff_pad
+    z_teff = excess_sigma(log_teff, combined_sigma(s_teff, floor=params["teff_floor_dex"]),
                           t_low, t_high)
     deviations.append(np.where(bounds.outside_range, z_teff, np.nan))
     values.append(log_teff)
@@ -118,8 +119,8 @@ CHECK = Check(
         "ages up to the age of the Universe (this bin and its neighbours); log R bounds by "
         "Stefan-Boltzmann; boxes from memory for WD, AGB, RSG, BSG and hot HB stars\n"
         "deviation = distance outside [min - pad_dex, max + pad_dex] in sigma of the "
-        "star's own error (the worst of log g, log L, log R, or Teff outside the phase's "
-        "range)\n"
+        "star's own error (the worst of log g, log L, log R), or of log Teff outside the "
+        "phase's Teff range widened by teff_pad_dex\n"
         "warning beyond threshold sigma, error beyond error_threshold sigma",
         caveats="Unresolved binaries sit up to 0.3 dex above the single-star main "
         "sequence; stars more metal-poor than [M/H] = -2 are hotter and brighter than the "
@@ -134,6 +135,7 @@ CHECK = Check(
                     "(envelopes derived by scripts/derive_envelopes.py)",),
     ),
     defaults={"threshold": 3.0, "error_threshold": 5.0, "pad_dex": 0.1, "floor_dex": 0.05,
+              "teff_pad_dex": 0.02, "teff_floor_dex": 0.01,
               "assumed_logg_dex": 0.15, "assumed_log_dex": 0.05,
               "assumed_teff_fraction": 0.02},
 )
