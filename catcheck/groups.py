@@ -101,6 +101,9 @@ class GroupSummary:
 class _BottomSample:
     """Per group, the values of the ``size`` members with the smallest row hash.
 
+    Values are kept in single precision (ample for robust centres and spreads) and hashes
+    as their top 32 bits; equal hashes keep row order, so the sample stays deterministic.
+
     New values wait in a pending list and are merged (sorted, cut to ``size`` per group)
     only when the pending part outgrows the kept part, so the work stays O(n log n) over a
     run and memory stays below about groups x size x 2 entries.
@@ -108,17 +111,20 @@ class _BottomSample:
 
     def __init__(self, size: int) -> None:
         self.size = size
-        self.codes = np.empty(0, dtype=np.int64)
-        self.hashes = np.empty(0, dtype=np.uint64)
-        self.values = np.empty(0, dtype=float)
+        # compact types: the sample can hold groups x size entries (12 bytes each)
+        self.codes = np.empty(0, dtype=np.int32)
+        self.hashes = np.empty(0, dtype=np.uint32)
+        self.values = np.empty(0, dtype=np.float32)
         self.counts = np.zeros(0, dtype=np.int64)
-        self.cutoff = np.empty(0, dtype=np.uint64)  # largest kept hash of a full group
+        self.cutoff = np.empty(0, dtype=np.uint32)  # largest kept hash of a full group
         self.pending: list[tuple[np.ndarray, np.ndarray, np.ndarray]] = []
         self.pending_size = 0
 
     def add(self, codes: np.ndarray, hashes: np.ndarray, values: np.ndarray) -> None:
         keep = (codes >= 0) & ~np.isnan(values)
-        codes, hashes, values = codes[keep], hashes[keep], values[keep]
+        codes = codes[keep].astype(np.int32)
+        hashes = (hashes[keep] >> np.uint64(32)).astype(np.uint32)
+        values = values[keep].astype(np.float32)
         if not len(codes):
             return
         self._grow(int(codes.max()) + 1)
@@ -156,13 +162,14 @@ class _BottomSample:
         if extra > 0:
             self.counts = np.concatenate([self.counts, np.zeros(extra, dtype=np.int64)])
             self.cutoff = np.concatenate(
-                [self.cutoff, np.full(extra, np.iinfo(np.uint64).max, dtype=np.uint64)])
+                [self.cutoff, np.full(extra, np.iinfo(np.uint32).max, dtype=np.uint32)])
 
     def summary(self, groups: int) -> GroupSummary:
         self._merge()
         self._grow(groups)
-        median = _group_median(self.codes, self.values, groups)
-        deviation = np.abs(self.values - median[self.codes])
+        values = self.values.astype(float)
+        median = _group_median(self.codes, values, groups)
+        deviation = np.abs(values - median[self.codes])
         spread = MAD_TO_SIGMA * _group_median(self.codes, deviation, groups)
         return GroupSummary(self.counts.copy(), median, spread)
 
