@@ -86,32 +86,30 @@ the onset of a convective core kinks the lifetime curve.
 from __future__ import annotations
 
 import argparse
-import datetime as dt
-import hashlib
-import os
 import sys
 from collections.abc import Sequence
 from dataclasses import dataclass
-from importlib.metadata import PackageNotFoundError, version
 from pathlib import Path
 
 import numpy as np
 from numpy.typing import NDArray
 
-REPO = Path(__file__).resolve().parents[1]
-sys.path.insert(0, str(REPO / "tests"))
+sys.path.insert(0, str(Path(__file__).resolve().parent))  # provenance.py, beside this script
 
-from parsec_data import (  # noqa: E402  (the loader lives with the tests)
-    PARSEC_FILE,
-    PARSEC_REFERENCE,
+from provenance import (
+    DATA,
     ParsecGrid,
+    default_date,
     parsec_grid_path,
+    provenance_header,
     read_parsec_grid,
+    without_date,
 )
 
 FloatArray = NDArray[np.float64]
 
-OUTPUT = REPO / "catcheck" / "data" / "parsec_timescales.csv"
+OUTPUT = DATA / "parsec_timescales.csv"
+DOCUMENT = DATA / "TIMESCALES.md"
 
 #: log10 initial mass grid of the table: 0.1 .. 199.5 Msun, 0.02 dex apart
 LOG_MASS_GRID = np.round(np.arange(-1.00, 2.30 + 1e-9, 0.02), 2)
@@ -338,25 +336,13 @@ def _number(value: float) -> str:
     return "" if np.isnan(value) else f"{value:.4f}"
 
 
-def package_version() -> str:
-    try:
-        return version("lachesis-grids")
-    except PackageNotFoundError:
-        return "unknown"
-
-
 def render(derivation: Derivation, path: Path, date: str) -> str:
     """The CSV text: a commented header (provenance, rules, columns), then the rows."""
-    digest = hashlib.sha256(path.read_bytes()).hexdigest()
-    lines = [
-        "# Evolutionary timescales of PARSEC v1.2S stars by initial mass and [M/H]",
-        "# table: parsec_timescales",
-        "# status: computed",
-        f"# reference: {PARSEC_REFERENCE}",
-        f"# source: lachesis-grids {package_version()}, file {PARSEC_FILE}, sha256 {digest}",
-        "# derived: scripts/derive_timescales.py (rules in its docstring and in "
-        "catcheck/data/TIMESCALES.md)",
-        f"# date: {date}",
+    lines = provenance_header(
+        "Evolutionary timescales of PARSEC v1.2S stars by initial mass and [M/H]",
+        table="parsec_timescales", status="computed", script=Path(__file__),
+        document=DOCUMENT, grid=path, date=date)
+    lines += [
         f"# mass grid: log10 M/Msun = {LOG_MASS_GRID[0]:.2f} .. {LOG_MASS_GRID[-1]:.2f} "
         "step 0.02",
         f"# feh grid: [M/H] = {derivation.feh[0]:.2f} .. {derivation.feh[-1]:.2f} step 0.25",
@@ -393,18 +379,6 @@ def render(derivation: Derivation, path: Path, date: str) -> str:
     return "\n".join(lines) + "\n"
 
 
-def default_date() -> str:
-    epoch = os.environ.get("SOURCE_DATE_EPOCH")
-    moment = (dt.datetime.fromtimestamp(int(epoch), tz=dt.timezone.utc) if epoch
-              else dt.datetime.now(tz=dt.timezone.utc))
-    return moment.date().isoformat()
-
-
-def without_date(text: str) -> list[str]:
-    """The lines of a table other than its ``# date:`` line (for --check)."""
-    return [line for line in text.splitlines() if not line.startswith("# date:")]
-
-
 def build_table(date: str | None = None) -> str:
     """Derive the table from the installed grid file and return its CSV text."""
     path = parsec_grid_path()
@@ -421,7 +395,8 @@ def main(argv: Sequence[str] | None = None) -> int:
     args = parser.parse_args(argv)
     text = build_table(args.date)
     if args.check:
-        same = args.out.is_file() and without_date(args.out.read_text()) == without_date(text)
+        same = args.out.is_file() and without_date(
+            args.out.read_text(encoding="utf-8")) == without_date(text)
         print(f"{args.out}: {'up to date' if same else 'differs from the grid derivation'}")
         return 0 if same else 1
     args.out.write_text(text, encoding="utf-8")

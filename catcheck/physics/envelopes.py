@@ -36,13 +36,13 @@ import math
 import re
 from dataclasses import dataclass
 from functools import cache
-from importlib import resources
 from typing import NamedTuple
 
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
 
 from catcheck.physics.stellar import log_luminosity_stefan_boltzmann_log
+from catcheck.physics.tables import number, read_table, shipped_text
 from catcheck.quantities import PHASE_CODES, PHASE_INDEX
 
 FloatArray = NDArray[np.float64]
@@ -248,9 +248,7 @@ def outside_teff_range(phase_codes: ArrayLike, log_teff: ArrayLike) -> BoolArray
 @cache
 def _table() -> tuple[dict[str, PhaseEnvelope], dict[str, str]]:
     """(envelopes by phase, header metadata) of the shipped table, read once."""
-    text = resources.files("catcheck").joinpath("data", ENVELOPE_FILE).read_text(
-        encoding="utf-8")
-    return read_envelope_table(text, ENVELOPE_FILE)
+    return read_envelope_table(shipped_text(ENVELOPE_FILE), ENVELOPE_FILE)
 
 
 @cache
@@ -272,35 +270,18 @@ def read_envelope_table(text: str, where: str) -> tuple[dict[str, PhaseEnvelope]
     source, bins not contiguous on the table's grid, a minimum above its maximum, a value
     missing on one side only, a (phase, source) without its range line.
     """
-    meta: dict[str, str] = {}
+    table = read_table(text, where, columns=COLUMNS,
+                       metadata=(*REQUIRED_META, "derived", "date", "max log age"),
+                       required=REQUIRED_META, parse_row=_row)
     ranges: dict[tuple[str, str], dict[str, tuple[float, float]]] = {}
     counts: dict[tuple[str, str], int | None] = {}
     selections: dict[tuple[str, str], str] = {}
+    for here, line in table.comments:
+        _read_comment(line, here, ranges, counts, selections)
     rows: dict[tuple[str, str], list[tuple[float, ...]]] = {}
-    header_seen = False
-    for number, line in enumerate(text.splitlines(), start=1):
-        stripped = line.strip()
-        if not stripped:
-            continue
-        if stripped.startswith("#"):
-            _read_comment(stripped, f"{where}, line {number}", meta, ranges, counts, selections)
-            continue
-        fields = [f.strip() for f in stripped.split(",")]
-        if not header_seen:
-            if tuple(fields) != COLUMNS:
-                raise ValueError(f"{where}, line {number}: expected the header "
-                                 f"{','.join(COLUMNS)!r}")
-            header_seen = True
-            continue
-        rows.setdefault(_row_key(fields, f"{where}, line {number}"), []).append(
-            _row_values(fields, f"{where}, line {number}"))
-    missing = [key for key in REQUIRED_META if not meta.get(key)]
-    if missing:
-        raise ValueError(f"{where}: header lacks {', '.join(missing)} (the table names its "
-                         "source)")
-    if not rows:
-        raise ValueError(f"{where}: the table has no rows")
-    width = float(meta["bin width"])
+    for key, values in table.rows:
+        rows.setdefault(key, []).append(values)
+    width = float(table.metadata["bin width"])
     by_phase: dict[str, list[tuple[str, FloatArray]]] = {}
     for (phase, source), values in rows.items():
         if (phase, source) not in ranges:
@@ -314,14 +295,14 @@ def read_envelope_table(text: str, where: str) -> tuple[dict[str, PhaseEnvelope]
                        counts.get((phase, source)), selections.get((phase, source), ""))
             for source, _ in parts)
         envelopes[phase] = _merge(phase, parts, width, phase_ranges)
-    return envelopes, meta
+    return envelopes, table.metadata
 
 
-def _read_comment(line: str, where: str, meta: dict[str, str],
+def _read_comment(line: str, where: str,
                   ranges: dict[tuple[str, str], dict[str, tuple[float, float]]],
                   counts: dict[tuple[str, str], int | None],
                   selections: dict[tuple[str, str], str]) -> None:
-    """Sort one ``#`` line into metadata, a range, a selection or prose."""
+    """Read one ``#`` line if it is a range or a selection (metadata and prose pass)."""
     match = _RANGE_LINE.fullmatch(line)
     if match:
         key = (match["phase"], match["source"])
@@ -341,15 +322,14 @@ def _read_comment(line: str, where: str, meta: dict[str, str],
     match = _SELECTION_LINE.fullmatch(line)
     if match:
         selections[match["phase"], match["source"]] = match["body"].strip()
-        return
-    key_text, sep, value = line[1:].partition(":")
-    if sep and key_text.strip() in (*REQUIRED_META, "derived", "date", "max log age"):
-        meta[key_text.strip()] = value.strip()
+
+
+def _row(fields: list[str], where: str) -> tuple[tuple[str, str], tuple[float, ...]]:
+    """((phase, source), values) of one row: :func:`_row_key`, :func:`_row_values`."""
+    return _row_key(fields, where), _row_values(fields, where)
 
 
 def _row_key(fields: list[str], where: str) -> tuple[str, str]:
-    if len(fields) != len(COLUMNS):
-        raise ValueError(f"{where}: expected {len(COLUMNS)} fields, got {len(fields)}")
     phase, source = fields[0], fields[1]
     if phase not in PHASE_INDEX:
         raise ValueError(f"{where}: unknown phase code {phase!r}")
@@ -362,10 +342,8 @@ def _row_key(fields: list[str], where: str) -> tuple[str, str]:
 
 def _row_values(fields: list[str], where: str) -> tuple[float, ...]:
     """(low, high, logg_min, logg_max, logl_min, logl_max, n_points) of one row."""
-    try:
-        values = [float(f) if f else math.nan for f in fields[2:]]
-    except ValueError:
-        raise ValueError(f"{where}: a value is not a number") from None
+    values = [number(field, where, name) for field, name in zip(fields[2:], COLUMNS[2:],
+                                                                strict=True)]
     low, high, g_lo, g_hi, l_lo, l_hi, _ = values
     if not (math.isfinite(low) and math.isfinite(high) and low < high):
         raise ValueError(f"{where}: bin edges must be numbers with low < high")

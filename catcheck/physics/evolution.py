@@ -48,16 +48,15 @@ are lower bounds on the initial mass.
 
 from __future__ import annotations
 
-import csv
 import math
 from dataclasses import dataclass
 from functools import cache
-from importlib import resources
 
 import numpy as np
 from numpy.typing import ArrayLike, NDArray
 
 from catcheck.constants import Constant
+from catcheck.physics.tables import number, read_table, shipped_text
 
 FloatArray = NDArray[np.float64]
 BoolArray = NDArray[np.bool_]
@@ -109,17 +108,7 @@ class TimescaleTable:
 @cache
 def timescale_table() -> TimescaleTable:
     """The shipped table, read once (``catcheck/data/parsec_timescales.csv``)."""
-    text = resources.files("catcheck").joinpath("data", TABLE_FILE).read_text(encoding="utf-8")
-    return read_timescale_table(text, TABLE_FILE)
-
-
-def _float(field: str, where: str) -> float:
-    if field == "":
-        return math.nan
-    try:
-        return float(field)
-    except ValueError:
-        raise ValueError(f"{where}: {field!r} is not a number") from None
+    return read_timescale_table(shipped_text(TABLE_FILE), TABLE_FILE)
 
 
 def read_timescale_table(text: str, where: str) -> TimescaleTable:
@@ -131,64 +120,39 @@ def read_timescale_table(text: str, where: str) -> TimescaleTable:
     naming the file and line for anything else, including a main-sequence lifetime that
     does not fall strictly with mass (the turn-off mass inverts it).
     """
-    metadata: dict[str, str] = {}
-    rows: list[list[str]] = []
-    lines: list[int] = []
-    header_seen = False
-    for number, line in enumerate(text.splitlines(), start=1):
-        stripped = line.strip()
-        if not stripped:
-            continue
-        if stripped.startswith("#"):
-            key, sep, value = stripped[1:].partition(":")
-            if sep and key.strip() in TABLE_METADATA:
-                metadata[key.strip()] = value.strip()
-            continue
-        fields = next(csv.reader([stripped]))
-        if not header_seen:
-            if tuple(fields) != TABLE_COLUMNS:
-                raise ValueError(f"{where}, line {number}: expected the header "
-                                 f"{','.join(TABLE_COLUMNS)}")
-            header_seen = True
-            continue
-        if len(fields) != len(TABLE_COLUMNS):
-            raise ValueError(f"{where}, line {number}: expected {len(TABLE_COLUMNS)} fields")
-        rows.append(fields)
-        lines.append(number)
-    missing = [key for key in TABLE_METADATA if not metadata.get(key)]
-    if missing:
-        raise ValueError(f"{where}: header lacks {', '.join(missing)}")
-    if not rows:
-        raise ValueError(f"{where}: the table has no rows")
-
-    values = np.empty((len(rows), 5))
-    for k, (fields, number) in enumerate(zip(rows, lines, strict=True)):
-        here = f"{where}, line {number}"
-        for source in fields[3::2]:
-            if source not in TABLE_SOURCES:
-                raise ValueError(f"{here}: source {source!r} is not one of "
-                                 f"{', '.join(TABLE_SOURCES)}")
-        for value, source in zip(fields[2::2], fields[3::2], strict=True):
-            if (value == "") != (source == "none"):
-                raise ValueError(f"{here}: a value is empty exactly when its source is none")
-        values[k] = [_float(fields[0], here), _float(fields[1], here),
-                     _float(fields[2], here), _float(fields[4], here), _float(fields[6], here)]
+    table = read_table(text, where, columns=TABLE_COLUMNS, metadata=TABLE_METADATA,
+                       required=TABLE_METADATA, parse_row=_timescale_row)
+    values = np.array([row for row, _ in table.rows])
     log_mass = np.unique(values[:, 0])
     feh = np.unique(values[:, 1])
     shape = (len(log_mass), len(feh))
     expected = np.stack(np.meshgrid(log_mass, feh, indexing="ij"), axis=-1).reshape(-1, 2)
-    if len(rows) != shape[0] * shape[1] or not np.array_equal(values[:, :2], expected):
+    if len(values) != shape[0] * shape[1] or not np.array_equal(values[:, :2], expected):
         raise ValueError(f"{where}: rows must cover every (log_mass, feh) once, masses "
                          "ascending and every feh within each mass")
     log_t_ms = values[:, 2].reshape(shape)
     if np.isnan(log_t_ms).any() or np.any(np.diff(log_t_ms, axis=0) >= 0):
         raise ValueError(f"{where}: log_t_ms must be given everywhere and fall strictly "
                          "with mass at every feh")
-    pms_upper_limit = np.array([fields[5] == "upper_limit" for fields in rows], dtype=float)
+    pms_upper_limit = np.array([upper for _, upper in table.rows], dtype=float)
     return TimescaleTable(log_mass=log_mass, feh=feh, log_t_ms=log_t_ms,
                           log_t_pms=values[:, 3].reshape(shape),
                           pms_upper_limit=pms_upper_limit.reshape(shape),
-                          log_t_heb_end=values[:, 4].reshape(shape), metadata=metadata)
+                          log_t_heb_end=values[:, 4].reshape(shape),
+                          metadata=table.metadata)
+
+
+def _timescale_row(fields: list[str], here: str) -> tuple[tuple[float, ...], bool]:
+    """((log_mass, feh, log_t_ms, log_t_pms, log_t_heb_end), t_PMS is an upper limit)."""
+    for source in fields[3::2]:
+        if source not in TABLE_SOURCES:
+            raise ValueError(f"{here}: source {source!r} is not one of "
+                             f"{', '.join(TABLE_SOURCES)}")
+    for value, source in zip(fields[2::2], fields[3::2], strict=True):
+        if (value == "") != (source == "none"):
+            raise ValueError(f"{here}: a value is empty exactly when its source is none")
+    values = tuple(number(fields[k], here, TABLE_COLUMNS[k]) for k in (0, 1, 2, 4, 6))
+    return values, fields[5] == "upper_limit"
 
 
 @dataclass(frozen=True)

@@ -40,12 +40,13 @@ from collections.abc import Sequence
 from dataclasses import dataclass
 from enum import IntEnum
 from functools import cache
-from importlib import resources
 from typing import NamedTuple
 
 import numpy as np
 import pyarrow as pa
 from numpy.typing import ArrayLike, NDArray
+
+from catcheck.physics.tables import number, read_table, shipped_text
 
 #: class letters in temperature order; the type index of class c, subtype s is 10 * pos + s
 CLASS_LETTERS = "OBAFGKMLTY"
@@ -352,8 +353,7 @@ def teff_scale(name: str) -> TeffScale:
 @cache
 def _load_scale(name: str) -> TeffScale:
     filename = f"mk_teff_{name}.csv"
-    text = resources.files("catcheck").joinpath("data", filename).read_text(encoding="utf-8")
-    meta, types, teff = read_scale_table(text, filename)
+    meta, types, teff = read_scale_table(shipped_text(filename), filename)
     index = np.array([parse_mk(spt).index for spt in types])
     log_teff = np.log10(np.array(teff))
     if np.isnan(index).any() or np.any(np.diff(index) <= 0):
@@ -375,40 +375,16 @@ def read_scale_table(text: str, where: str) -> tuple[dict[str, str], list[str], 
     type.  Raises ``ValueError`` naming the file and line for anything else, so a scale
     cannot be built without its source.
     """
-    meta: dict[str, str] = {}
-    types: list[str] = []
-    teff: list[float] = []
-    header_seen = False
-    for number, line in enumerate(text.splitlines(), start=1):
-        stripped = line.strip()
-        if not stripped:
-            continue
-        if stripped.startswith("#"):
-            key, sep, value = stripped[1:].partition(":")
-            if sep and key.strip() in (*_REQUIRED_META, "derived", _EARLIER_TYPES):
-                meta[key.strip()] = value.strip()
-            continue
-        fields = [f.strip() for f in stripped.split(",")]
-        if not header_seen:
-            if fields != ["spt", "teff"]:
-                raise ValueError(f"{where}, line {number}: expected the header 'spt,teff'")
-            header_seen = True
-            continue
-        if len(fields) != 2:
-            raise ValueError(f"{where}, line {number}: expected 'type,teff', got {stripped!r}")
-        try:
-            value = float(fields[1])
-        except ValueError:
-            raise ValueError(f"{where}, line {number}: Teff {fields[1]!r} is not a number"
-                             ) from None
-        if not value > 0:
-            raise ValueError(f"{where}, line {number}: Teff must be positive, got {value}")
-        types.append(fields[0])
-        teff.append(value)
-    missing = [key for key in _REQUIRED_META if not meta.get(key)]
-    if missing:
-        raise ValueError(f"{where}: header lacks {', '.join(missing)} (every scale names "
-                         "its source)")
-    if not types:
-        raise ValueError(f"{where}: the table has no rows")
-    return meta, types, teff
+    table = read_table(text, where, columns=("spt", "teff"),
+                       metadata=(*_REQUIRED_META, "derived", _EARLIER_TYPES),
+                       required=_REQUIRED_META, parse_row=_scale_row)
+    return (table.metadata, [spt for spt, _ in table.rows],
+            [teff for _, teff in table.rows])
+
+
+def _scale_row(fields: list[str], here: str) -> tuple[str, float]:
+    """(type, Teff) of one row of a scale table; Teff must be a positive number."""
+    value = number(fields[1], here, "Teff")
+    if not value > 0:
+        raise ValueError(f"{here}: Teff must be positive, got {fields[1] or 'nothing'}")
+    return fields[0], value
