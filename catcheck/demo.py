@@ -2,13 +2,15 @@
 
 The scenario is fictional: the *Larkspur Open Cluster Survey* (LOCS), a spectroscopic
 census of numbered open clusters ("C-017") at 0.3-3 kpc.  Each cluster is a simple stellar
-population (one age, one metallicity, one distance); its members are drawn from the
-Kroupa (2001) IMF, evolved with the relations of :mod:`catcheck.physics.populations`
-(PARSEC-based lifetimes, Eker et al. 2018 main sequence, schematic giant branches,
-Cummings et al. 2018 / Nauenberg 1972 white dwarfs) and observed through the survey's
-selection function.  True values obey Stefan-Boltzmann and g = GM/R^2 exactly; catalogue
-values add Gaussian noise with the quoted 1-sigma errors, some values are missing, and
-about 2% of the rows carry one planted fault each, listed in a truth table.
+population (one age, one metallicity to 0.03 dex, one distance to 20 pc); its members are
+drawn from the Kroupa (2001) IMF, evolved with the relations of
+:mod:`catcheck.physics.populations` (PARSEC v1.2S lifetimes and contraction times from
+:mod:`catcheck.physics.evolution`, Eker et al. 2018 main sequence placed on PARSEC's,
+schematic giant branches, Cummings et al. 2018 / Nauenberg 1972 white dwarfs) and
+observed through the survey's selection function.  True values obey Stefan-Boltzmann and
+g = GM/R^2 exactly; catalogue values add Gaussian noise with the quoted 1-sigma errors,
+some values are missing, and 2.7% of the rows carry one planted fault each (single-star
+physics, evolution and cluster membership: :data:`FAULT_KINDS`), listed in a truth table.
 
 Public API: :func:`write_demo`, :func:`tally_faults`, :data:`FAULT_KINDS`,
 :class:`DemoFiles`.  No printing, no command line: the CLI renders.
@@ -37,6 +39,7 @@ from numpy.typing import NDArray
 
 from catcheck.constants import AGE_OF_UNIVERSE, MBOL_SUN
 from catcheck.physics import populations as pop
+from catcheck.physics.evolution import log_main_sequence_lifetime
 from catcheck.physics.main_sequence import eker2018_log_luminosity
 from catcheck.physics.populations import Stage
 from catcheck.physics.stellar import (
@@ -65,13 +68,17 @@ CLUSTER_SIZE_SCATTER_DEX = 0.25
 
 #: Cluster ages log-uniform over 10 Myr - 6 Gyr (catalogued to 0.1 Myr).
 AGE_RANGE_MYR = (10.0, 6000.0)
-#: Cluster metallicity [Fe/H] ~ N(-0.1, 0.15) dex, clipped to -0.8..+0.4 (the PARSEC
-#: lifetime fit is valid for -1 <= [M/H] <= +0.25).
+#: Cluster metallicity [Fe/H] ~ N(-0.1, 0.15) dex, clipped to -0.8..+0.4 (open clusters
+#: of the solar neighbourhood; inside the PARSEC timescale table's -2.0..+0.5).
 FEH_MEAN, FEH_SD, FEH_CLIP = -0.1, 0.15, (-0.8, 0.4)
-#: Member [Fe/H] scatter around the cluster value (measurement plus abundance spread).
-FEH_MEMBER_SD = 0.05
+#: A member's true [Fe/H] lies uniformly within this many dex of its cluster's: open
+#: clusters are chemically homogeneous to a few hundredths of a dex.
+FEH_SPREAD_DEX = 0.03
 #: Clusters fill a thin disc uniformly between 0.3 and 3 kpc: p(d) ~ d.
 DISTANCE_RANGE_PC = (300.0, 3000.0)
+#: Members fill a sphere of this diameter (pc) around the cluster's centre, so their
+#: distances, and parallaxes, spread by up to +-half of it.
+CLUSTER_DEPTH_PC = 20.0
 
 #: Selection function: members brighter than apparent bolometric magnitude 18 are
 #: observed; main-sequence and pre-main-sequence members with probability 0.4 (fibres are
@@ -92,13 +99,17 @@ RADIUS_REL_ERR = (0.04, 0.05)
 MASS_REL_ERR = (0.05, 0.08)
 LOG_G_ERR = (0.08, 0.12)
 PARALLAX_ERR = (0.02, 0.05)
-#: Noise is Gaussian with the quoted sigma, redrawn for the rare star (~1 in 70,000)
-#: whose Stefan-Boltzmann or surface-gravity residual would exceed this many combined
-#: sigma: the demo's false positives then measure the rules, not the noise tail.
+#: Quoted 1-sigma of [Fe/H] (dex), drawn per star uniformly within this range.
+FEH_ERR = (0.03, 0.08)
+#: Noise is Gaussian with the quoted sigma, redrawn for the rare star (~1 in 16,000)
+#: whose noise in any quantity, or whose Stefan-Boltzmann or surface-gravity residual,
+#: would exceed this many (combined) sigma: the demo's false positives then measure the
+#: rules, not the noise tail.
 NOISE_TRUNCATION_SIGMA = 4.5
 
-#: Fraction of rows with planted faults.
-FAULT_FRACTION = 0.02
+#: Fraction of rows with planted faults, shared equally by the fault kinds (each kind
+#: gets its share of every chunk, where enough rows can carry it).
+FAULT_FRACTION = 0.027
 #: Fraction of rows that carry an MK spectral type.
 SPECTRAL_TYPE_FRACTION = 0.4
 
@@ -121,6 +132,7 @@ class SurveyColumns:
     log_g_err: str = "log_g_err"
     age: str = "cluster_age_myr"
     feh: str = "fe_h"
+    feh_err: str = "fe_h_err"
     parallax: str = "parallax"
     parallax_err: str = "parallax_err"
     evol_class: str = "evol_class"
@@ -138,6 +150,7 @@ MISSING_FRACTION: dict[str, float] = {
 _ERROR_OF = {
     _C.teff: _C.teff_err, _C.log_lum: _C.log_lum_err, _C.radius: _C.radius_err,
     _C.mass: _C.mass_err, _C.log_g: _C.log_g_err, _C.parallax: _C.parallax_err,
+    _C.feh: _C.feh_err,
 }
 
 #: The survey's evolutionary-state vocabulary, and the phase code each label means.
@@ -157,7 +170,8 @@ _LUMINOSITY_CLASS: dict[Stage, str] = {
 
 _FLOAT_COLUMNS = (
     _C.teff, _C.teff_err, _C.log_lum, _C.log_lum_err, _C.radius, _C.radius_err, _C.mass,
-    _C.mass_err, _C.log_g, _C.log_g_err, _C.age, _C.feh, _C.parallax, _C.parallax_err,
+    _C.mass_err, _C.log_g, _C.log_g_err, _C.age, _C.feh, _C.feh_err, _C.parallax,
+    _C.parallax_err,
 )
 SCHEMA = pa.schema(
     [pa.field(_C.id, pa.string(), nullable=False), pa.field(_C.cluster, pa.string())]
@@ -174,22 +188,89 @@ TRUTH_SCHEMA = pa.schema(
 # =========================================================================================
 
 Columns = dict[str, FloatArray]
+Rows = NDArray[np.intp]
+Mask = NDArray[np.bool_]
+
+#: ms_too_old ages a main-sequence star to this multiple of its main-sequence lifetime;
+#: giant_too_young makes a giant this many times younger than the lifetime of its mass.
+AGE_FAULT_FACTOR = 5.0
+#: giant_too_young takes giants of at least this catalogued mass (Msun).  A giant has lost
+#: mass (~0.1-0.3 Msun on the red giant branch for low-mass stars; PHYSICS.md section 4),
+#: so its present mass only bounds its initial mass from below: 1/5 of the lifetime of a
+#: 1.5 Msun giant is still 0.43 of the lifetime of a 1.95 Msun progenitor (0.37 dex, within
+#: 3 sigma of a 0.1 dex age error).  From ~4 Msun the age is too young, by > 3 sigma, for
+#: any progenitor the giant could have had, at every [Fe/H] and mass error of the survey.
+GIANT_TOO_YOUNG_MIN_MASS = 4.0
+#: wd_too_young: the age (Myr) given to a white dwarf, younger than any white dwarf.
+WD_TOO_YOUNG_MYR = 10.0
+#: The giants (log g at most, Teff below) that ms_label_on_giant relabels as dwarfs, and
+#: the dwarfs (log g at least, Teff below) that giant_label_on_dwarf relabels as giants.
+GIANT_LOGG_MAX, DWARF_LOGG_MIN, COOL_TEFF_MAX = 3.0, 4.4, 5500.0
+#: post-main-sequence stages short of a white dwarf: the "giants" of the label faults
+_GIANT_STAGES = (Stage.SGB, Stage.RGB, Stage.CLUMP, Stage.CHEB, Stage.AGB, Stage.SUPERGIANT)
+#: parallax_outlier moves a member's parallax to twice, or half, its cluster's parallax;
+#: half only where that still lies this many quoted errors from the cluster.
+PARALLAX_HALF_MIN_ERRORS = 10.0
+#: metallicity_outlier moves a member's [Fe/H] this far (dex) from its cluster's.
+FEH_SHIFT_DEX = (0.6, 0.8)
 
 
-def _plant_luminosity_offset(cols: Columns, idx: NDArray[np.intp], rng: Generator) -> None:
+@dataclass(frozen=True)
+class _Chunk:
+    """One chunk's rows as a planting function sees them (arrays changed in place)."""
+
+    cols: Columns  # the catalogue's float columns
+    label: NDArray[np.int8]  # the Stage each row's evolutionary label names
+    labelled: Mask  # the row has a label (evol_class is not missing)
+    cluster: NDArray[np.intp]  # the row's cluster (index into the cluster table)
+    cluster_parallax: FloatArray  # mas, 1000 / the distance of the row's cluster
+    cluster_feh: FloatArray  # the row's cluster's true [Fe/H]
+
+    def has(self, column: str) -> Mask:
+        """Rows where ``column`` holds a value."""
+        return self.labelled if column == _C.evol_class else ~np.isnan(self.cols[column])
+
+    def labelled_as(self, *stages: Stage) -> Mask:
+        return self.labelled & np.isin(self.label, stages)
+
+    def first_per_cluster(self, mask: Mask) -> Mask:
+        """``mask`` thinned to its first row in each cluster."""
+        rows = np.flatnonzero(mask)
+        first = np.zeros_like(mask)
+        first[rows[np.unique(self.cluster[rows], return_index=True)[1]]] = True
+        return first
+
+    def lifetime_myr(self, rows: Rows | slice = slice(None)) -> FloatArray:
+        """Main-sequence lifetime (Myr) of the catalogued mass at the catalogued [Fe/H].
+
+        :func:`catcheck.physics.evolution.log_main_sequence_lifetime` (PARSEC v1.2S), the
+        timescale the evolution rules use; NaN where mass or [Fe/H] is missing.
+        """
+        log_t = log_main_sequence_lifetime(self.cols[_C.mass][rows], self.cols[_C.feh][rows])
+        return 10.0 ** (log_t - 6.0)
+
+
+def _age_myr(age_myr: FloatArray) -> FloatArray:
+    """An age as the survey catalogues it: Myr, to 0.1 Myr."""
+    return np.round(age_myr, 1)
+
+
+def _plant_luminosity_offset(chunk: _Chunk, idx: Rows, rng: Generator) -> None:
     # the shift takes the sign of the row's noise residual, so noise never hides part of it
+    cols = chunk.cols
     residual = cols[_C.log_lum][idx] - log_luminosity_stefan_boltzmann(
         cols[_C.radius][idx], cols[_C.teff][idx])
     sign = np.where(residual >= 0.0, 1.0, -1.0)
     cols[_C.log_lum][idx] += sign * rng.uniform(0.5, 1.0, idx.size)
 
 
-def _plant_radius_inflated(cols: Columns, idx: NDArray[np.intp], rng: Generator) -> None:
-    cols[_C.radius][idx] *= 3.0
-    cols[_C.radius_err][idx] *= 3.0
+def _plant_radius_inflated(chunk: _Chunk, idx: Rows, rng: Generator) -> None:
+    chunk.cols[_C.radius][idx] *= 3.0
+    chunk.cols[_C.radius_err][idx] *= 3.0
 
 
-def _plant_impossible_teff(cols: Columns, idx: NDArray[np.intp], rng: Generator) -> None:
+def _plant_impossible_teff(chunk: _Chunk, idx: Rows, rng: Generator) -> None:
+    cols = chunk.cols
     hot = rng.random(idx.size) < 0.5
     new = np.where(hot, 10.0 ** rng.uniform(6.0, 7.0, idx.size),
                    rng.uniform(1.0, 100.0, idx.size))
@@ -197,22 +278,96 @@ def _plant_impossible_teff(cols: Columns, idx: NDArray[np.intp], rng: Generator)
     cols[_C.teff][idx] = new
 
 
-def _plant_age_beyond_universe(cols: Columns, idx: NDArray[np.intp], rng: Generator) -> None:
-    cols[_C.age][idx] = np.round(rng.uniform(20_000.0, 40_000.0, idx.size), 1)
+def _plant_age_beyond_universe(chunk: _Chunk, idx: Rows, rng: Generator) -> None:
+    chunk.cols[_C.age][idx] = _age_myr(rng.uniform(20_000.0, 40_000.0, idx.size))
 
 
-def _plant_impossible_mass(cols: Columns, idx: NDArray[np.intp], rng: Generator) -> None:
+def _plant_impossible_mass(chunk: _Chunk, idx: Rows, rng: Generator) -> None:
+    cols = chunk.cols
     heavy = rng.random(idx.size) < 0.5
     new = np.where(heavy, rng.uniform(500.0, 5000.0, idx.size), -cols[_C.mass][idx])
     cols[_C.mass_err][idx] *= np.abs(new / cols[_C.mass][idx])
     cols[_C.mass][idx] = new
 
 
+def _ms_too_old_age(chunk: _Chunk, rows: Rows | slice = slice(None)) -> FloatArray:
+    return _age_myr(AGE_FAULT_FACTOR * chunk.lifetime_myr(rows))
+
+
+def _can_be_ms_too_old(chunk: _Chunk) -> Mask:
+    # dwarfs whose aged value stays below the age of the Universe (above ~1.45 Msun)
+    fits = _ms_too_old_age(chunk) < AGE_OF_UNIVERSE.value / 1e6
+    return chunk.labelled_as(Stage.MS) & fits
+
+
+def _plant_ms_too_old(chunk: _Chunk, idx: Rows, rng: Generator) -> None:
+    chunk.cols[_C.age][idx] = _ms_too_old_age(chunk, idx)
+
+
+def _can_be_giant_too_young(chunk: _Chunk) -> Mask:
+    massive = chunk.cols[_C.mass] >= GIANT_TOO_YOUNG_MIN_MASS
+    return chunk.labelled_as(Stage.RGB, Stage.CLUMP, Stage.CHEB) & massive
+
+
+def _plant_giant_too_young(chunk: _Chunk, idx: Rows, rng: Generator) -> None:
+    chunk.cols[_C.age][idx] = _age_myr(chunk.lifetime_myr(idx) / AGE_FAULT_FACTOR)
+
+
+def _plant_wd_too_young(chunk: _Chunk, idx: Rows, rng: Generator) -> None:
+    chunk.cols[_C.age][idx] = WD_TOO_YOUNG_MYR
+
+
+def _cool(chunk: _Chunk) -> Mask:
+    return chunk.cols[_C.teff] < COOL_TEFF_MAX
+
+
+def _is_cool_giant(chunk: _Chunk) -> Mask:
+    low_g = chunk.cols[_C.log_g] <= GIANT_LOGG_MAX
+    return chunk.labelled_as(*_GIANT_STAGES) & low_g & _cool(chunk)
+
+
+def _is_cool_dwarf(chunk: _Chunk) -> Mask:
+    # one per cluster: a cluster's evolved members date it (rule cluster-turnoff-age), and
+    # nearby clusters, rich in cool dwarfs, would otherwise gain more false giants than
+    # they have real ones
+    high_g = chunk.cols[_C.log_g] >= DWARF_LOGG_MIN
+    return chunk.first_per_cluster(chunk.labelled_as(Stage.MS) & high_g & _cool(chunk))
+
+
+def _plant_ms_label(chunk: _Chunk, idx: Rows, rng: Generator) -> None:
+    chunk.label[idx] = Stage.MS
+
+
+def _plant_giant_label(chunk: _Chunk, idx: Rows, rng: Generator) -> None:
+    chunk.label[idx] = Stage.RGB
+
+
+def _plant_parallax_outlier(chunk: _Chunk, idx: Rows, rng: Generator) -> None:
+    centre = chunk.cluster_parallax[idx]
+    half_is_far = 0.5 * centre >= PARALLAX_HALF_MIN_ERRORS * chunk.cols[_C.parallax_err][idx]
+    half = half_is_far & (rng.random(idx.size) < 0.5)
+    chunk.cols[_C.parallax][idx] = np.where(half, 0.5, 2.0) * centre
+
+
+def _plant_metallicity_outlier(chunk: _Chunk, idx: Rows, rng: Generator) -> None:
+    # away from the cluster on the side the row's noise already lies
+    feh = chunk.cols[_C.feh]
+    sign = np.where(feh[idx] >= chunk.cluster_feh[idx], 1.0, -1.0)
+    feh[idx] += sign * rng.uniform(*FEH_SHIFT_DEX, idx.size)
+
+
 @dataclass(frozen=True)
 class _Fault:
     description: str
     needs: tuple[str, ...]  # columns that must hold a value for the fault to be plantable
-    plant: Callable[[Columns, NDArray[np.intp], Generator], None]
+    plant: Callable[[_Chunk, Rows, Generator], None]
+    where: Callable[[_Chunk], Mask] | None = None  # further rows that can carry it
+
+    def candidates(self, chunk: _Chunk) -> Mask:
+        ok = np.ones(chunk.label.size, dtype=bool) if self.where is None else self.where(chunk)
+        for column in self.needs:
+            ok &= chunk.has(column)
+        return ok
 
 
 _FAULTS: dict[str, _Fault] = {
@@ -231,6 +386,33 @@ _FAULTS: dict[str, _Fault] = {
     "impossible_mass": _Fault(
         "mass above 500 Msun or negative",
         (_C.mass,), _plant_impossible_mass),
+    "ms_too_old": _Fault(
+        f"a dwarf's catalogued age set to {AGE_FAULT_FACTOR:g}x the main-sequence lifetime of "
+        "its mass and [Fe/H] (PARSEC), where that is below the age of the Universe",
+        (_C.mass, _C.feh, _C.evol_class), _plant_ms_too_old, _can_be_ms_too_old),
+    "giant_too_young": _Fault(
+        f"a red or core-helium giant's (>= {GIANT_TOO_YOUNG_MIN_MASS:g} Msun) catalogued age "
+        f"set to 1/{AGE_FAULT_FACTOR:g} of the main-sequence lifetime of its mass and [Fe/H] "
+        "(PARSEC)",
+        (_C.mass, _C.feh, _C.evol_class), _plant_giant_too_young, _can_be_giant_too_young),
+    "wd_too_young": _Fault(
+        f"a white dwarf's catalogued age set to {WD_TOO_YOUNG_MYR:g} Myr",
+        (_C.evol_class,), _plant_wd_too_young, lambda chunk: chunk.labelled_as(Stage.WD)),
+    "ms_label_on_giant": _Fault(
+        f"a giant (log g <= {GIANT_LOGG_MAX:g}, Teff < {COOL_TEFF_MAX:g} K) labelled "
+        f"{LABELS[Stage.MS]!r} (main sequence)",
+        (_C.log_g, _C.teff, _C.evol_class), _plant_ms_label, _is_cool_giant),
+    "giant_label_on_dwarf": _Fault(
+        f"a dwarf (log g >= {DWARF_LOGG_MIN:g}, Teff < {COOL_TEFF_MAX:g} K) labelled "
+        f"{LABELS[Stage.RGB]!r} (red giant branch)",
+        (_C.log_g, _C.teff, _C.evol_class), _plant_giant_label, _is_cool_dwarf),
+    "parallax_outlier": _Fault(
+        "a member's parallax set to twice or half its cluster's (error unchanged)",
+        (_C.parallax,), _plant_parallax_outlier),
+    "metallicity_outlier": _Fault(
+        f"a member's [Fe/H] moved {FEH_SHIFT_DEX[0]:g}-{FEH_SHIFT_DEX[1]:g} dex away from "
+        "its cluster's (error unchanged)",
+        (_C.feh,), _plant_metallicity_outlier),
 }
 
 #: Fault kind -> one-line description, in planting order.
@@ -363,7 +545,7 @@ def profile_toml() -> str:
         ("mass", c.mass, "Msun", c.mass_err),
         ("logg", c.log_g, "dex(cm/s2)", c.log_g_err),
         ("age", c.age, "Myr", None),
-        ("feh", c.feh, "dex", None),
+        ("feh", c.feh, "dex", c.feh_err),
         ("parallax", c.parallax, "mas", c.parallax_err),
     ]
     lines = [
@@ -486,13 +668,19 @@ def _noise(
     true: dict[str, FloatArray],
     err: dict[str, FloatArray],
 ) -> dict[str, FloatArray]:
-    """Observed values: true + N(0, quoted sigma), truncated jointly (NOISE_TRUNCATION_SIGMA)."""
+    """Observed values: true + N(0, quoted sigma), truncated jointly (NOISE_TRUNCATION_SIGMA).
+
+    A row is redrawn, every quantity at once, while the noise of any quantity or its
+    Stefan-Boltzmann or surface-gravity residual exceeds NOISE_TRUNCATION_SIGMA sigma.
+    """
     n = true[_C.teff].size
     obs = {k: true[k] + err[k] * rng.standard_normal(n) for k in true}
     todo = np.arange(n)
     for _ in range(100):
         z_sb, z_g = _residual_sigmas(obs, err, todo)
         bad = (z_sb > NOISE_TRUNCATION_SIGMA) | (z_g > NOISE_TRUNCATION_SIGMA)
+        for k in obs:
+            bad |= np.abs(obs[k][todo] - true[k][todo]) > NOISE_TRUNCATION_SIGMA * err[k][todo]
         todo = todo[bad]
         if todo.size == 0:
             break
@@ -528,7 +716,7 @@ def _make_chunk(
     member = row - clusters.start[ci] + 1
     age_myr = clusters.age_myr[ci]
     feh_cluster = clusters.feh[ci]
-    distance = clusters.distance_pc[ci]
+    distance = clusters.distance_pc[ci] + _depth_offsets(rng, n)
 
     stage, star = _draw_members(rng, age_myr * 1e6, feh_cluster, distance)
     true = {
@@ -538,7 +726,7 @@ def _make_chunk(
         _C.mass: star.mass,
         _C.log_g: log_surface_gravity(star.mass, star.radius),
         _C.parallax: 1000.0 / distance,
-        _C.feh: feh_cluster,
+        _C.feh: feh_cluster + rng.uniform(-FEH_SPREAD_DEX, FEH_SPREAD_DEX, n),
     }
     err = {
         _C.teff: star.teff * rng.uniform(*TEFF_REL_ERR, n),
@@ -547,7 +735,7 @@ def _make_chunk(
         _C.mass: star.mass * rng.uniform(*MASS_REL_ERR, n),
         _C.log_g: rng.uniform(*LOG_G_ERR, n),
         _C.parallax: rng.uniform(*PARALLAX_ERR, n),
-        _C.feh: np.full(n, FEH_MEMBER_SD),
+        _C.feh: rng.uniform(*FEH_ERR, n),
     }
     cols: Columns = _noise(rng, true, err)
     for name, error_name in _ERROR_OF.items():
@@ -565,11 +753,13 @@ def _make_chunk(
         f"{SURVEY_PREFIX}-",
         _padded(clusters.numbers[ci], clusters.number_width), "-",
         _padded(member, clusters.member_width), "")
-    truth = _plant_faults(rng, cols, row, ids)
+    chunk = _Chunk(cols, stage.copy(), ~missing[_C.evol_class], ci,
+                   1000.0 / clusters.distance_pc[ci], feh_cluster)
+    truth = _plant_faults(rng, chunk, row, ids)
 
     labels = pa.array([LABELS.get(s, "") for s in Stage])
     evol = pa.DictionaryArray.from_arrays(
-        pa.array(stage.astype(np.int32), mask=missing[_C.evol_class]), labels
+        pa.array(chunk.label.astype(np.int32), mask=missing[_C.evol_class]), labels
     ).dictionary_decode()
     sp_type = _spectral_types(rng, stage, star.teff)
     cluster_names = pa.DictionaryArray.from_arrays(
@@ -578,6 +768,13 @@ def _make_chunk(
     arrays = [ids, cluster_names] + [pa.array(cols[name]) for name in _FLOAT_COLUMNS]
     arrays += [evol, sp_type]
     return pa.Table.from_arrays(arrays, schema=SCHEMA), truth
+
+
+def _depth_offsets(rng: Generator, n: int) -> FloatArray:
+    """Line-of-sight offsets (pc) of members spread uniformly through a sphere of diameter
+    CLUSTER_DEPTH_PC: radius R u^(1/3) and a uniform cosine of the angle to the line of sight."""
+    radius = 0.5 * CLUSTER_DEPTH_PC * np.cbrt(rng.random(n))
+    return radius * rng.uniform(-1.0, 1.0, n)
 
 
 def _padded(values: NDArray[np.int64], width: int) -> pa.Array:
@@ -594,22 +791,19 @@ def _spectral_types(rng: Generator, stage: NDArray[np.int8], teff: FloatArray) -
 
 
 def _plant_faults(
-    rng: Generator, cols: Columns, row: NDArray[np.int64], ids: pa.Array
+    rng: Generator, chunk: _Chunk, row: NDArray[np.int64], ids: pa.Array
 ) -> pa.Table:
-    """Plant ~FAULT_FRACTION faults, at most one per row, spread evenly over the kinds."""
+    """Plant FAULT_FRACTION of the rows with faults, at most one per row, an equal share
+    of the chunk per kind (fewer where fewer rows can carry a kind), in _FAULTS order."""
     n = row.size
-    n_faults = rng.binomial(n, FAULT_FRACTION)
-    counts = rng.multinomial(n_faults, np.full(len(_FAULTS), 1.0 / len(_FAULTS)))
+    count = round(n * FAULT_FRACTION / len(_FAULTS))
     taken = np.zeros(n, dtype=bool)
     picked: list[NDArray[np.intp]] = []
     kinds: list[str] = []
-    for (kind, fault), count in zip(_FAULTS.items(), counts, strict=True):
-        ok = ~taken
-        for column in fault.needs:
-            ok &= ~np.isnan(cols[column])
-        candidates = np.flatnonzero(ok)
+    for kind, fault in _FAULTS.items():
+        candidates = np.flatnonzero(fault.candidates(chunk) & ~taken)
         idx = np.sort(rng.choice(candidates, size=min(count, candidates.size), replace=False))
-        fault.plant(cols, idx, rng)
+        fault.plant(chunk, idx, rng)
         taken[idx] = True
         picked.append(idx)
         kinds += [kind] * idx.size

@@ -9,6 +9,10 @@ relation is a schematic choice of ours (no published fit) it says so.
 Units: mass in Msun, luminosity as log10 L/Lsun, radius in Rsun, Teff in K, ages in yr,
 metallicity [M/H] ~ [Fe/H] in dex.  Solar units are the IAU 2015 nominal values; the
 Stefan-Boltzmann law and surface gravity come from :mod:`catcheck.physics.stellar`.
+Main-sequence lifetimes and contraction times are those of
+:mod:`catcheck.physics.evolution` (PARSEC v1.2S) and spectral types use the Teff scales
+of :mod:`catcheck.physics.spectral`: the demo's stars are built from the same tables the
+rules check them against.
 """
 
 from __future__ import annotations
@@ -20,7 +24,13 @@ import numpy as np
 from numpy.typing import ArrayLike, NDArray
 
 from catcheck.constants import TEFF_SUN
+from catcheck.physics.evolution import (
+    MAX_WHITE_DWARF_PROGENITOR_MASS,
+    log_main_sequence_lifetime,
+    log_pre_main_sequence_time,
+)
 from catcheck.physics.main_sequence import eker2018_log_luminosity
+from catcheck.physics.spectral import CLASS_LETTERS, TeffScale, teff_scale
 from catcheck.physics.stellar import radius_stefan_boltzmann
 
 FloatArray = NDArray[np.float64]
@@ -137,38 +147,29 @@ def kroupa_imf_cdf(mass: ArrayLike, m_min: float = 0.1, m_max: float = 20.0) -> 
 
 
 # =========================================================================================
-# Lifetimes (PHYSICS.md section 4, computed from PARSEC v1.2S)
+# Lifetimes: catcheck.physics.evolution (PARSEC v1.2S), the same timescales the rules use
 # =========================================================================================
 
 
-def log_main_sequence_lifetime(mass: ArrayLike, feh: ArrayLike) -> FloatArray:
-    """log10 of the main-sequence lifetime in yr, from initial mass (Msun) and [M/H] (dex).
+def log_contraction_time(mass: ArrayLike, feh: ArrayLike) -> FloatArray:
+    """log10 of the pre-main-sequence contraction time t_c (yr), for every mass in 0.1-20 Msun.
 
-    ``log t = 9.983 - 3.377x + 0.780x^2 + 0.023x^3 + [M/H](0.234 - 0.307x + 0.086x^2)``,
-    x = log10 M: a fit (0.7-120 Msun, -1 <= [M/H] <= +0.25; rms 0.026 dex, max 0.12 dex)
-    to the ages at which stars leave the main sequence in the PARSEC v1.2S isochrones
-    (Bressan et al. 2012, MNRAS 427, 127).  Below 0.7 Msun it is extrapolated; those
-    lifetimes exceed the age of the Universe either way.
+    :func:`catcheck.physics.evolution.log_pre_main_sequence_time` (PARSEC v1.2S, Bressan
+    et al. 2012, MNRAS 427, 127), which is NaN at 0.10-0.11 Msun for [M/H] above 0 or
+    below -1.75, where the isochrones leave gaps; there the solar-metallicity value stands
+    in (at those masses t_c differs from it by < 0.1 dex up to [M/H] = +0.5 and by
+    ~0.25 dex at -2.0).
     """
-    x = np.log10(np.asarray(mass, dtype=float))
-    z = np.asarray(feh, dtype=float)
-    # Horner form of the polynomial above
-    return 9.983 + x * (-3.377 + x * (0.780 + 0.023 * x)) + z * (0.234 + x * (-0.307 + 0.086 * x))
-
-
-def log_pre_main_sequence_time(mass: ArrayLike, feh: ArrayLike) -> FloatArray:
-    """log10 of the pre-main-sequence contraction time in yr (Msun, dex).
-
-    ``log t = 7.607 - 1.943x - 0.648x^2 + 0.279[M/H]``, x = log10 M: a fit (0.1-7 Msun,
-    rms 0.065 dex) to the age at which the radius first reaches its ZAMS value within
-    0.01 dex in the PARSEC v1.2S tracks (Bressan et al. 2012).
-    """
-    x = np.log10(np.asarray(mass, dtype=float))
-    return 7.607 + x * (-1.943 - 0.648 * x) + 0.279 * np.asarray(feh, dtype=float)
+    mass = np.asarray(mass, dtype=float)
+    log_t = log_pre_main_sequence_time(mass, feh)
+    gap = np.isnan(log_t) & np.isfinite(mass)
+    if gap.any():
+        log_t = np.where(gap, log_pre_main_sequence_time(mass, 0.0), log_t)
+    return log_t
 
 
 #: Shape of the approach to the ZAMS: log10(R / R_ZAMS) = 0.01 dex (t / t_c)^-0.85, with
-#: t_c the PARSEC contraction time of :func:`log_pre_main_sequence_time` (defined as the
+#: t_c the PARSEC contraction time of :func:`log_contraction_time` (defined as the
 #: age at which R first comes within 0.01 dex of its ZAMS value, so the form matches it at
 #: t = t_c by construction).  Schematic, ours: it gives ~0.07 dex at t_c / 10 and ~0.5 dex
 #: at t_c / 100 (0.1 Msun: ~0.16 Rsun at 80 Myr, ~0.4 Rsun at 8 Myr, close to published
@@ -204,17 +205,25 @@ EKER_2018_MRR: tuple[float, float, float] = (0.438, 0.479, 0.075)
 EKER_2018_MTR: tuple[float, float, float] = (-0.170, 0.888, 3.671)
 EKER_2018_MRR_MAX_MASS = 1.5
 
-#: Main-sequence evolution, ZAMS to the end of the main sequence (TAMS), by log M (Msun):
-#: total brightening in log L and growth in log R.  Schematic values of ours, chosen to
-#: match the ~0.3-0.5 dex ZAMS-TAMS brightening and, roughly, the PARSEC main-sequence
-#: log g ranges by mass quoted in PHYSICS.md section 5 (1.0-1.2 Msun 4.20-4.55, 1.5-2 Msun
-#: 3.54-4.36, 3-5 Msun 3.45-4.37), from Bressan et al. 2012.
-MS_EVOLUTION_LOG_MASS: tuple[float, ...] = (0.0, 0.079, 0.176, 0.3, 0.7)
-MS_BRIGHTENING_DEX: tuple[float, ...] = (0.30, 0.33, 0.36, 0.40, 0.50)
-MS_RADIUS_GROWTH_DEX: tuple[float, ...] = (0.15, 0.20, 0.30, 0.35, 0.40)
+#: Main-sequence evolution, ZAMS to the end of the main sequence (TAMS), by log M (Msun)
+#: at the nodes MS_EVOLUTION_LOG_MASS (1, 1.2, 1.5, 2, 4, 7 and 10 Msun; constant beyond):
+#: the total brightening in log L and growth in log R, and the largest fraction of the
+#: main sequence at which a star sits on the Eker et al. (2018) relations (for L and for R;
+#: see EKER_2018_REFERENCE_AGE_YR).  Above 1 Msun computed from the PARSEC v1.2S
+#: isochrones at [M/H] = 0 (Bressan et al. 2012; ZAMS at EEP 202, TAMS at EEP 454 of
+#: parsec_v1.25.h5), relative to the Eker relations and rounded: PARSEC's ZAMS lies
+#: 0-0.2 dex below the Eker luminosity and its TAMS 0.2-0.35 dex above it, so the
+#: relations run through the early main sequence, not its middle.  At 1 Msun the schematic
+#: 0.30 and 0.15 dex with the Sun's own fraction (0.48) keep the Sun on its nominal values.
+MS_EVOLUTION_LOG_MASS: tuple[float, ...] = (0.0, 0.079, 0.176, 0.301, 0.602, 0.845, 1.0)
+MS_BRIGHTENING_DEX: tuple[float, ...] = (0.30, 0.31, 0.32, 0.30, 0.41, 0.42, 0.44)
+MS_RADIUS_GROWTH_DEX: tuple[float, ...] = (0.15, 0.16, 0.24, 0.26, 0.31, 0.37, 0.39)
+MS_LUMINOSITY_REFERENCE_MAX: tuple[float, ...] = (0.5, 0.25, 0.06, 0.0, 0.15, 0.37, 0.41)
+MS_RADIUS_REFERENCE_MAX: tuple[float, ...] = (0.5, 0.29, 0.17, 0.10, 0.19, 0.42, 0.40)
 #: Age at which a star sits on the Eker et al. (2018) relations: their calibrators are
-#: nearby field stars, which we take to be as old as the Sun, 4.6 Gyr (or half-way through
-#: the main sequence if that is shorter).  Schematic, ours.
+#: nearby field stars, which we take to be as old as the Sun, 4.6 Gyr, or, if that is
+#: longer than their main sequence, at the fractions MS_LUMINOSITY_REFERENCE_MAX and
+#: MS_RADIUS_REFERENCE_MAX of it.  Schematic, ours.
 EKER_2018_REFERENCE_AGE_YR = 4.6e9
 
 
@@ -262,23 +271,28 @@ def main_sequence_star(mass: ArrayLike, fraction: ArrayLike) -> StarProperties:
     """A main-sequence star of initial mass M (Msun) at ``fraction`` (0 ZAMS .. 1 TAMS) of its life.
 
     The Eker et al. (2018) relations (:func:`eker2018_log_luminosity`,
-    :func:`eker2018_radius`) give the star at the reference fraction
-    f_ref = min(0.5, 4.6 Gyr / t_MS) (:data:`EKER_2018_REFERENCE_AGE_YR`, t_MS at solar
-    metallicity from :func:`log_main_sequence_lifetime`); log L and log R then change
-    linearly in ``fraction`` by :data:`MS_BRIGHTENING_DEX` and :data:`MS_RADIUS_GROWTH_DEX`
-    between ZAMS and TAMS (schematic), and Teff follows from Stefan-Boltzmann, so the
+    :func:`eker2018_radius`) give the star at a reference fraction of its main sequence,
+    f_ref = min(f_max, 4.6 Gyr / t_MS) (:data:`EKER_2018_REFERENCE_AGE_YR`, t_MS at solar
+    metallicity from :func:`catcheck.physics.evolution.log_main_sequence_lifetime`, f_max
+    by mass from :data:`MS_LUMINOSITY_REFERENCE_MAX` and :data:`MS_RADIUS_REFERENCE_MAX`);
+    log L and log R then change linearly in ``fraction`` by :data:`MS_BRIGHTENING_DEX` and
+    :data:`MS_RADIUS_GROWTH_DEX` between ZAMS and TAMS, which above 1 Msun puts the ZAMS
+    and TAMS where PARSEC v1.2S has them, and Teff follows from Stefan-Boltzmann, so the
     triple is exactly self-consistent.  Low-mass dwarfs, whose f_ref is ~0, stay on the
     relations; the Sun (1 Msun at 4.57 Gyr) comes out within 2% of its nominal L, R, Teff.
     """
     mass = np.asarray(mass, dtype=float)
     f = np.clip(np.asarray(fraction, dtype=float), 0.0, 1.0)
     logm = np.log10(mass)
-    f_ref = np.minimum(
-        0.5, EKER_2018_REFERENCE_AGE_YR / 10.0 ** log_main_sequence_lifetime(mass, 0.0))
-    brighten = np.interp(logm, MS_EVOLUTION_LOG_MASS, MS_BRIGHTENING_DEX)
-    grow = np.interp(logm, MS_EVOLUTION_LOG_MASS, MS_RADIUS_GROWTH_DEX)
-    log_l = eker2018_log_luminosity(mass) + brighten * (f - f_ref)
-    radius = eker2018_radius(mass) * 10.0 ** (grow * (f - f_ref))
+    at_reference_age = EKER_2018_REFERENCE_AGE_YR / 10.0 ** log_main_sequence_lifetime(mass, 0.0)
+
+    def along(nodes: tuple[float, ...]) -> FloatArray:
+        return np.interp(logm, MS_EVOLUTION_LOG_MASS, nodes)
+
+    f_l = np.minimum(along(MS_LUMINOSITY_REFERENCE_MAX), at_reference_age)
+    f_r = np.minimum(along(MS_RADIUS_REFERENCE_MAX), at_reference_age)
+    log_l = eker2018_log_luminosity(mass) + along(MS_BRIGHTENING_DEX) * (f - f_l)
+    radius = eker2018_radius(mass) * 10.0 ** (along(MS_RADIUS_GROWTH_DEX) * (f - f_r))
     return StarProperties(mass, log_l, radius, teff_stefan_boltzmann(log_l, radius))
 
 
@@ -368,8 +382,9 @@ class Stage(IntEnum):
 #: burning and AGB; beyond the last a star is a white dwarf (or a remnant above M_UP).
 POST_MS_WINDOWS: tuple[float, float, float, float] = (1.04, 1.10, 1.18, 1.20)
 SUPERGIANT_WINDOW = 1.10
-#: Most massive white-dwarf progenitor, ~6-8 Msun (from memory; PHYSICS.md section 4).
-M_UP = 8.0
+#: Most massive white-dwarf progenitor (Msun): 8 Msun after Smartt 2009, the value the
+#: white-dwarf rules use (:data:`catcheck.physics.evolution.MAX_WHITE_DWARF_PROGENITOR_MASS`).
+M_UP = MAX_WHITE_DWARF_PROGENITOR_MASS.value
 #: Helium-flash mass: below it core helium burning starts degenerate (red clump),
 #: ~2.2 Msun (PARSEC envelope split in PHYSICS.md section 5).
 M_HEF = 2.2
@@ -378,15 +393,20 @@ M_HEF = 2.2
 def evolutionary_stage(mass: ArrayLike, age: ArrayLike, feh: ArrayLike) -> NDArray[np.int8]:
     """Stage (:class:`Stage` codes) of stars of initial mass M (Msun) at ``age`` (yr), [M/H] (dex).
 
-    Main-sequence lifetime from :func:`log_main_sequence_lifetime` (PARSEC v1.2S fit),
-    contraction time from :func:`log_pre_main_sequence_time`; the post-main-sequence
-    split follows ``POST_MS_WINDOWS`` (schematic).
+    Main-sequence lifetime from :func:`catcheck.physics.evolution.log_main_sequence_lifetime`
+    and contraction time from :func:`log_contraction_time`, both PARSEC v1.2S (Bressan et
+    al. 2012) and the timescales the evolution rules use; the post-main-sequence split
+    follows ``POST_MS_WINDOWS`` (schematic).
     """
     mass = np.asarray(mass, dtype=float)
     age = np.broadcast_to(np.asarray(age, dtype=float), mass.shape)
     feh = np.broadcast_to(np.asarray(feh, dtype=float), mass.shape)
-    phi = age / 10.0 ** log_main_sequence_lifetime(mass, feh)
-    pms = age < 10.0 ** log_pre_main_sequence_time(mass, feh)
+    return _stage(mass, age / 10.0 ** log_main_sequence_lifetime(mass, feh),
+                  age < 10.0 ** log_contraction_time(mass, feh))
+
+
+def _stage(mass: FloatArray, phi: FloatArray, pms: NDArray[np.bool_]) -> NDArray[np.int8]:
+    """:func:`evolutionary_stage` from age / t_MS (``phi``) and 'still contracting'."""
     sgb, rgb, cheb, agb = POST_MS_WINDOWS
     low = mass <= M_UP
     conditions = [
@@ -409,6 +429,15 @@ def evolutionary_stage(mass: ArrayLike, age: ArrayLike, feh: ArrayLike) -> NDArr
         Stage.AGB,
     ]
     return np.select(conditions, choices, default=Stage.WD).astype(np.int8)
+
+
+#: Coolest end of the schematic subgiant branch (K).  PARSEC v1.2S subgiants (label 2)
+#: cooler than ~4700 K are all luminous (log L > 2.2, massive stars: the SGB envelope of
+#: catcheck/data/parsec_envelopes.csv, Bressan et al. 2012); 2-4 Msun stars reach the
+#: giant branch hotter than that, so the subgiant branch stops at 5000 K and the giant
+#: branch takes over from there (a star at 5000 K must be catalogued 6.5% too cool, over
+#: 3 sigma of a 2% Teff error, to fall among the luminous ones).
+SUBGIANT_MIN_TEFF = 5000.0
 
 
 def red_giant_branch_teff(log_luminosity: ArrayLike, feh: ArrayLike) -> FloatArray:
@@ -441,15 +470,17 @@ def stellar_properties(
     - MS: :func:`main_sequence_star` at fraction age / t_MS.
     - PMS: the ZAMS star swollen by :func:`pre_main_sequence_log_radius_excess` at the ZAMS
       Teff (vertical Hayashi track), L from Stefan-Boltzmann.
-    - SGB: log L and log Teff interpolated from the end of the MS to the base of the giant
-      branch (Teff >= 4400 K).
+    - SGB: log L and log Teff interpolated from the end of the MS towards the base of the
+      giant branch, ending no cooler than :data:`SUBGIANT_MIN_TEFF`.
     - RGB: log L from max(0.8, log L_TAMS) to max(3.0, base + 0.6) (at most 4.3), more stars
       low on the branch; Teff from :func:`red_giant_branch_teff`; up to 0.15 Msun lost
       towards the tip below 2.2 Msun.
     - CLUMP: log L 1.60-1.85, Teff 4550-4850 K (less 250 K per dex [M/H]), 0.15 Msun lost:
       inside the PARSEC clump envelope (log L 1.54-2.46, Teff 4309-5015 K).
-    - CHEB (2.2-8 Msun): log L = log L_TAMS + 0.2-0.5, Teff 4300-5200 K (red part only,
-      no blue loops).
+    - CHEB (2.2-8 Msun): log L = log L_TAMS + 0.2-0.5, Teff 4500-5200 K (red part only,
+      no blue loops; PARSEC's intermediate-mass core helium burners cooler than ~4400 K
+      have log g below ~2.3, so a cooler schematic star would sit on the envelope's steep
+      cool edge).
     - AGB: log L from log L_TAMS + 0.5 (kept within 2.8-4.2) up to 0.8 dex higher (at most
       4.6), Teff 3200-3900 K, 10-25% mass lost: inside the AGB ranges quoted from memory in
       PHYSICS.md section 5 (log L 2.7-4.6, Teff 2000-4000 K, log g -1 to 1.5).
@@ -467,13 +498,16 @@ def stellar_properties(
     feh = np.broadcast_to(np.asarray(feh, dtype=float), m0.shape)
     u1 = np.asarray(u1, dtype=float)
     u2 = np.asarray(u2, dtype=float)
-    stage = evolutionary_stage(m0, age, feh)
     t_ms = 10.0 ** log_main_sequence_lifetime(m0, feh)
+    t_pms = 10.0 ** log_contraction_time(m0, feh)
     phi = age / t_ms
+    stage = _stage(m0, phi, age < t_pms)
 
-    ms = main_sequence_star(m0, phi)
-    tams = main_sequence_star(m0, 1.0)
-    zams = main_sequence_star(m0, 0.0)
+    # the star on its main sequence now, at its end (TAMS) and at its start (ZAMS), at once
+    now_end_start = main_sequence_star(m0, np.stack([phi, np.ones_like(phi),
+                                                     np.zeros_like(phi)]))
+    ms, tams, zams = (StarProperties(m0, *values)
+                      for values in zip(*now_end_start[1:], strict=True))
     log_t_tams = np.log10(tams.teff)
 
     mass_now = m0.copy()
@@ -487,7 +521,7 @@ def stellar_properties(
 
     # --- pre-main sequence: swollen ZAMS star at the ZAMS Teff
     sel = stage == Stage.PMS
-    excess = pre_main_sequence_log_radius_excess(age, 10.0 ** log_pre_main_sequence_time(m0, feh))
+    excess = pre_main_sequence_log_radius_excess(age, t_pms)
     r_pms = zams.radius * 10.0**excess
     take(sel, zams.log_luminosity + 2.0 * excess, np.log10(zams.teff))
 
@@ -502,7 +536,7 @@ def stellar_properties(
     take(
         sel,
         tams.log_luminosity + (rgb_lo - tams.log_luminosity) * tau,
-        log_t_tams + (np.log10(np.maximum(base_teff, 4400.0)) - log_t_tams) * tau,
+        log_t_tams + (np.log10(np.maximum(base_teff, SUBGIANT_MIN_TEFF)) - log_t_tams) * tau,
     )
 
     sel = stage == Stage.RGB
@@ -516,7 +550,7 @@ def stellar_properties(
     mass_now[sel] = m0[sel] - 0.15
 
     sel = stage == Stage.CHEB
-    take(sel, tams.log_luminosity + 0.2 + 0.3 * u1, np.log10(4300.0 + 900.0 * u2))
+    take(sel, tams.log_luminosity + 0.2 + 0.3 * u1, np.log10(4500.0 + 700.0 * u2))
 
     sel = stage == Stage.AGB
     agb_lo = np.clip(tams.log_luminosity + 0.5, 2.8, 4.2)
@@ -559,63 +593,48 @@ def stellar_properties(
 # MK spectral types
 # =========================================================================================
 
-#: Mean dwarf sequence, spectral type -> Teff (K): Pecaut & Mamajek 2013, ApJS 208, 9,
-#: Table 5, as updated in E. Mamajek's table version 2022.04.16 (whole and half subtypes).
-DWARF_TEFF: tuple[tuple[str, float], ...] = (
-    ("O3", 44900), ("O4", 42900), ("O5", 41400), ("O5.5", 40500), ("O6", 39500),
-    ("O6.5", 38300), ("O7", 37100), ("O7.5", 36100), ("O8", 35100), ("O8.5", 34300),
-    ("O9", 33300), ("O9.5", 31900), ("B0", 31400), ("B0.5", 29000), ("B1", 26000),
-    ("B1.5", 24500), ("B2", 20600), ("B2.5", 18500), ("B3", 17000), ("B4", 16400),
-    ("B5", 15700), ("B6", 14500), ("B7", 14000), ("B8", 12300), ("B9", 10700),
-    ("B9.5", 10400), ("A0", 9700), ("A1", 9300), ("A2", 8800), ("A3", 8600), ("A4", 8250),
-    ("A5", 8100), ("A6", 7910), ("A7", 7760), ("A8", 7590), ("A9", 7400), ("F0", 7220),
-    ("F1", 7020), ("F2", 6820), ("F3", 6750), ("F4", 6670), ("F5", 6550), ("F6", 6350),
-    ("F7", 6280), ("F8", 6180), ("F9", 6050), ("F9.5", 5990), ("G0", 5930), ("G1", 5860),
-    ("G2", 5770), ("G3", 5720), ("G4", 5680), ("G5", 5660), ("G6", 5600), ("G7", 5550),
-    ("G8", 5480), ("G9", 5380), ("K0", 5270), ("K1", 5170), ("K2", 5100), ("K3", 4830),
-    ("K4", 4600), ("K5", 4440), ("K6", 4300), ("K7", 4100), ("K8", 3990), ("K9", 3930),
-    ("M0", 3850), ("M0.5", 3770), ("M1", 3660), ("M1.5", 3620), ("M2", 3560),
-    ("M2.5", 3470), ("M3", 3430), ("M3.5", 3270), ("M4", 3210), ("M4.5", 3110),
-    ("M5", 3060), ("M5.5", 2930), ("M6", 2810), ("M6.5", 2740), ("M7", 2680),
-    ("M7.5", 2630), ("M8", 2570), ("M8.5", 2420), ("M9", 2380), ("M9.5", 2350),
-)
-#: Giant (luminosity class III) spectral type -> Teff (K); approximate, from memory
-#: (cf. the giant scales of Alonso et al. 1999, A&AS 140, 261 and van Belle et al. 1999,
-#: AJ 117, 521): G-K giants are a few hundred K cooler than dwarfs of the same type.
-GIANT_TEFF: tuple[tuple[str, float], ...] = (
-    ("F5", 6400), ("G0", 5600), ("G5", 5100), ("G8", 4950), ("K0", 4800), ("K1", 4650),
-    ("K2", 4500), ("K3", 4350), ("K4", 4150), ("K5", 3950), ("M0", 3850), ("M1", 3750),
-    ("M2", 3650), ("M3", 3550), ("M4", 3450), ("M5", 3350), ("M6", 3250), ("M7", 3150),
-)
+#: The shipped Teff scale (:func:`catcheck.physics.spectral.teff_scale`) that types a star
+#: of each luminosity class: the Pecaut & Mamajek (2013) mean dwarf sequence for dwarfs
+#: and subgiants, the giant and supergiant scales for the rest (white dwarfs apart).
+SCALE_OF_CLASS: dict[str, str] = {"V": "dwarf", "IV": "dwarf", "III": "giant", "Ib": "supergiant"}
 #: White-dwarf temperature index 50400 / Teff in half steps (McCook & Sion 1999, ApJS
 #: 121, 1, from memory); hydrogen-atmosphere (DA) spectra assumed.
 WD_TEMPERATURE_INDEX = 50400.0
 
 
-def _nearest_type(teff: FloatArray, table: tuple[tuple[str, float], ...]) -> NDArray[np.object_]:
-    names = np.array([name for name, _ in table], dtype=object)
-    log_t = np.log10(np.array([t for _, t in table], dtype=float))  # decreasing
-    # midpoints between neighbours in log Teff; np.searchsorted needs increasing order
+def _type_name(index: float) -> str:
+    """The MK type of a type index (G2 = 42; :mod:`catcheck.physics.spectral`), no class."""
+    letter = int(index // 10.0)
+    return f"{CLASS_LETTERS[letter]}{index - 10.0 * letter:g}"
+
+
+def _nearest_type(teff: FloatArray, scale: TeffScale) -> NDArray[np.object_]:
+    """The scale's type nearest in log Teff to each Teff (K)."""
+    names = np.array([_type_name(i) for i in scale.index], dtype=object)
+    log_t = scale.log_teff[::-1]  # increasing (the scale runs hot to cool)
     mids = 0.5 * (log_t[:-1] + log_t[1:])
-    idx = len(mids) - np.searchsorted(mids[::-1], np.log10(teff), side="right")
+    idx = len(mids) - np.searchsorted(mids, np.log10(teff), side="right")
     return names[idx]
 
 
 def mk_spectral_type(teff: ArrayLike, luminosity_class: ArrayLike) -> NDArray[np.object_]:
     """MK spectral type strings for Teff (K) and a luminosity class per star.
 
-    ``luminosity_class`` holds "V", "IV", "III", "Ib" or "D" (white dwarf).  Dwarfs and
-    subgiants take the nearest type (in log Teff) of the Pecaut & Mamajek (2013) mean dwarf
-    sequence (:data:`DWARF_TEFF`); giants and supergiants the approximate giant scale
-    :data:`GIANT_TEFF`; white dwarfs "DA" plus the temperature index 50400/Teff rounded to
-    a half (McCook & Sion 1999).  Returns an object array of str.
+    ``luminosity_class`` holds "V", "IV", "III", "Ib" or "D" (white dwarf).  Each star
+    takes the type nearest in log Teff on the shipped scale of its class
+    (:data:`SCALE_OF_CLASS`; :func:`catcheck.physics.spectral.teff_scale`: Pecaut &
+    Mamajek 2013 for dwarfs and subgiants, the giant and supergiant scales otherwise),
+    plus the class; white dwarfs "DA" plus the temperature index 50400/Teff rounded to a
+    half (McCook & Sion 1999).  Returns an object array of str.
     """
     teff = np.asarray(teff, dtype=float)
     lclass = np.asarray(luminosity_class, dtype=object)
-    giant = np.isin(lclass, ["III", "Ib"])
+    out = np.full(teff.shape, "", dtype=object)
+    for cls, name in SCALE_OF_CLASS.items():
+        sel = lclass == cls
+        if sel.any():
+            out[sel] = _nearest_type(teff[sel], teff_scale(name)) + cls
     wd = lclass == "D"
-    out = np.where(giant, _nearest_type(teff, GIANT_TEFF), _nearest_type(teff, DWARF_TEFF))
-    out = out + lclass
     if wd.any():
         index = np.round(2.0 * WD_TEMPERATURE_INDEX / teff[wd]) / 2.0
         values, inverse = np.unique(index, return_inverse=True)
