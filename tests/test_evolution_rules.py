@@ -137,3 +137,19 @@ def test_phase_envelope_catches_mislabels_and_passes_real_stars() -> None:
 def test_phase_envelope_flags_a_cool_dwarf_labelled_white_dwarf() -> None:
     flags = envelope_run([{"teff": 3000.0, "logg": 5.0, "phase": "WD"}])
     assert flags["row"].tolist() == [0]
+
+
+def test_phase_envelope_allows_for_the_teff_error_at_steep_edges() -> None:
+    """A red giant near the cool base of the RGB, whose Teff is 4 sigma low, is not flagged.
+
+    Values from a demo star (true Teff ~4612 K, catalogued 4265 +- 84 K): at the base of
+    the giant branch the allowed log g ceiling falls by ~0.24 dex per 0.01 dex of Teff.
+    """
+    frame = pd.DataFrame({"name": ["g"], "teff": [4265.0], "e_teff": [84.0],
+                          "logg": [2.90], "phase": ["RGB"]})
+    profile = profile_from_dict({"id": "name", "quantities": {
+        "teff": {"column": "teff", "unit": "K", "error": "e_teff"},
+        "logg": {"column": "logg", "unit": "dex(cm/s2)", "error_value": 0.084},
+        "phase": {"column": "phase"}}})
+    flags = catcheck.check_frame(frame, profile, rules=["evolution"]).flags
+    assert flags.empty

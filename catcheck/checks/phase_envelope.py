@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+from dataclasses import dataclass
+
 import numpy as np
 
 from catcheck.canonical import StarBatch
@@ -19,12 +21,10 @@ from catcheck.physics.envelopes import envelope_bounds, envelope_phases, phase_e
 from catcheck.physics.stellar import LN10
 from catcheck.quantities import PHASE_CODES, PHASE_INDEX
 
-#: what each compared quantity is called in messages, with its bound names
-_QUANTITIES = (
-    ("log g", "logg", "logg_min", "logg_max"),
-    ("log L", "luminosity", "logl_min", "logl_max"),
-    ("log R", "radius", "log_r_min", "log_r_max"),
-)
+#: the envelope bounds of each compared quantity, and its name in messages
+_BOUNDS = {"logg": ("logg_min", "logg_max"), "luminosity": ("logl_min", "logl_max"),
+           "radius": ("log_r_min", "log_r_max")}
+_LABELS = {"logg": "log g", "luminosity": "log L", "radius": "log R"}
 
 
 def _teff_ranges() -> tuple[np.ndarray, np.ndarray]:
@@ -40,65 +40,112 @@ def _teff_ranges() -> tuple[np.ndarray, np.ndarray]:
     return low, high
 
 
-def evaluate(batch: StarBatch, params: Params) -> Outcome:
-    """Flag rows whose log g, log L or log R lies outside their phase's envelope."""
-    log_teff = batch.log10("teff")
-    bounds = envelope_bounds(batch.phase, log_teff)
+@dataclass
+class _Assessment:
+    """The worst deviation of each row from its phase's envelope, and what it concerns."""
+
+    deviation: np.ndarray  # in sigma; NaN where nothing could be compared
+    observed: np.ndarray
+    expected: np.ndarray  # the envelope edge passed
+    worst: np.ndarray  # index into the compared quantities
+    covered: np.ndarray  # the phase has an envelope
+
+
+def _assess(phase: np.ndarray, log_teff: np.ndarray, s_teff: np.ndarray,
+            compared: list[tuple[str, np.ndarray, np.ndarray]], params: Params,
+            range_check: bool = True) -> _Assessment:
+    """Deviation of rows (any subset of a batch) from their envelopes at ``log_teff``.
+
+    With ``range_check`` a Teff outside the phase's whole range counts too (in sigma of
+    the Teff error itself, so it is judged at the catalogued Teff only).
+    """
+    bounds = envelope_bounds(phase, log_teff)
     pad = params["pad_dex"]
-    s_teff = batch.log_sigma("teff", params["assumed_teff_fraction"] / LN10)
-    deviations, values, limits, names = [], [], [], []
-    for label, quantity, low_name, high_name in _QUANTITIES:
-        if quantity not in batch.values:
-            continue
-        value = batch.values[quantity] if quantity == "logg" else batch.log10(quantity)
-        s_value = (batch.error_or("logg", params["assumed_logg_dex"]) if quantity == "logg"
-                   else batch.log_sigma(quantity, params["assumed_log_dex"]))
+    deviations, values, limits = [], [], []
+    for quantity, value, sigma in compared:
+        low_name, high_name = _BOUNDS[quantity]
         low = getattr(bounds, low_name) - pad
         high = getattr(bounds, high_name) + pad
-        z = excess_sigma(value, combined_sigma(s_value, floor=params["floor_dex"]), low, high)
+        z = excess_sigma(value, combined_sigma(sigma, floor=params["floor_dex"]), low, high)
         deviations.append(np.where(np.isnan(low), np.nan, z))
         values.append(value)
         limits.append(np.where(value > high, high, low))
-        names.append(label)
-    # Teff outside the phase's whole range, in sigma of log Teff
-    range_low, range_high = _teff_ranges()
-    known = batch.phase >= 0
-    code = np.where(known, batch.phase, 0)
-    teff_pad = params["teff_pad_dex"]
-    t_low = np.where(known, range_low[code], np.nan) - teff_pad
-    t_high = np.where(known, range_high[code], np.nan) + teff_pad
-    z_teff = excess_sigma(log_teff, combined_sigma(s_teff, floor=params["teff_floor_dex"]),
-                          t_low, t_high)
-    deviations.append(np.where(bounds.outside_range, z_teff, np.nan))
-    values.append(log_teff)
-    limits.append(np.where(log_teff > t_high, t_high, t_low))
-    names.append("log Teff")
+    if range_check:  # Teff outside the phase's whole range, in sigma of log Teff
+        range_low, range_high = _teff_ranges()
+        known = phase >= 0
+        code = np.where(known, phase, 0)
+        t_low = np.where(known, range_low[code], np.nan) - params["teff_pad_dex"]
+        t_high = np.where(known, range_high[code], np.nan) + params["teff_pad_dex"]
+        z_teff = excess_sigma(log_teff, combined_sigma(s_teff,
+                                                       floor=params["teff_floor_dex"]),
+                              t_low, t_high)
+        deviations.append(np.where(bounds.outside_range, z_teff, np.nan))
+        values.append(log_teff)
+        limits.append(np.where(log_teff > t_high, t_high, t_low))
 
     stacked = np.vstack(deviations)
     usable = ~np.isnan(stacked)
-    applies = bounds.covered & usable.any(axis=0)
     worst = np.argmax(np.where(usable, stacked, -np.inf), axis=0)
-    pick = np.arange(batch.size)
-    deviation = np.where(applies, stacked[worst, pick], np.nan)
-    observed = np.vstack(values)[worst, pick]
-    expected = np.vstack(limits)[worst, pick]
+    pick = np.arange(len(log_teff))
+    deviation = np.where(usable.any(axis=0), stacked[worst, pick], np.nan)
+    return _Assessment(deviation, np.vstack(values)[worst, pick],
+                       np.vstack(limits)[worst, pick], worst, bounds.covered)
+
+
+def evaluate(batch: StarBatch, params: Params) -> Outcome:
+    """Flag rows whose log g, log L or log R lies outside their phase's envelope.
+
+    Near a steep edge of an envelope (the cool base of the giant branch) the allowed log g
+    changes fast with Teff, so a row that fails at its catalogued Teff is judged again at
+    Teff -+ teff_sigmas x its Teff error, and the most favourable result counts.
+    """
+    log_teff = batch.log10("teff")
+    s_teff = batch.log_sigma("teff", params["assumed_teff_fraction"] / LN10)
+    compared = []
+    for quantity in _BOUNDS:
+        if quantity == "logg" and "logg" in batch.values:
+            compared.append((quantity, batch.values["logg"],
+                             batch.error_or("logg", params["assumed_logg_dex"])))
+        elif quantity in batch.values:
+            compared.append((quantity, batch.log10(quantity),
+                             batch.log_sigma(quantity, params["assumed_log_dex"])))
+    names = [_LABELS[q] for q, _, _ in compared] + ["log Teff"]
+    result = _assess(batch.phase, log_teff, s_teff, compared, params)
+    with np.errstate(invalid="ignore"):
+        suspects = np.flatnonzero(result.deviation > params["threshold"])
+    for sign in (-1.0, 1.0):
+        shifted_teff = log_teff[suspects] + sign * params["teff_sigmas"] * s_teff[suspects]
+        retry = _assess(batch.phase[suspects], shifted_teff, s_teff[suspects],
+                        [(q, v[suspects], e[suspects]) for q, v, e in compared], params,
+                        range_check=False)
+        with np.errstate(invalid="ignore"):
+            better = (retry.deviation < result.deviation[suspects]) & (
+                result.worst[suspects] < len(compared))  # a Teff-range failure stands
+        rows = suspects[better]
+        for field in ("deviation", "observed", "expected", "worst"):
+            getattr(result, field)[rows] = getattr(retry, field)[better]
+
+    applies = result.covered & ~np.isnan(result.deviation)
+    deviation = np.where(applies, result.deviation, np.nan)
     with np.errstate(invalid="ignore"):
         failed = applies & (deviation > params["threshold"])
         beyond = deviation > params["error_threshold"]
+    pad = params["pad_dex"]
 
     def describe(rows: np.ndarray) -> list[str]:
         phases = [PHASE_CODES[c] for c in batch.phase[rows].tolist()]
-        which = worst[rows].tolist()
+        which = result.worst[rows].tolist()
         return [
             f"{phase} star at Teff {10 ** t:.0f} K has {names[k]} = {o:.2f}, "
-            f"{'above' if o > e else 'below'} the {phase} envelope's {e:.2f} at that Teff "
-            f"(with {pad:g} dex margin): {d:.1f} sigma"
+            f"{'above' if o > e else 'below'} the {phase} envelope's {e:.2f} near that "
+            f"Teff (with {pad:g} dex margin): {d:.1f} sigma"
             for phase, k, (t, o, e, d) in zip(
-                phases, which, at_rows(rows, log_teff, observed, expected, deviation),
-                strict=True)
+                phases, which, at_rows(rows, log_teff, result.observed, result.expected,
+                                       deviation), strict=True)
         ]
 
-    return Outcome(failed, describe, observed, expected, deviation, applies, beyond)
+    return Outcome(failed, describe, result.observed, result.expected, deviation, applies,
+                   beyond)
 
 
 CHECK = Check(
@@ -118,6 +165,8 @@ CHECK = Check(
         "and log L of PARSEC v1.2S model points of that phase over [M/H] -2..+0.5 and all "
         "ages up to the age of the Universe (this bin and its neighbours); log R bounds by "
         "Stefan-Boltzmann; boxes from memory for WD, AGB, RSG, BSG and hot HB stars\n"
+        "a row outside at its Teff is judged again at Teff -+ teff_sigmas x its Teff error "
+        "and the most favourable result counts (steep envelope edges)\n"
         "deviation = distance outside [min - pad_dex, max + pad_dex] in sigma of the "
         "star's own error (the worst of log g, log L, log R), or of log Teff outside the "
         "phase's Teff range widened by teff_pad_dex\n"
@@ -135,7 +184,7 @@ CHECK = Check(
                     "(envelopes derived by scripts/derive_envelopes.py)",),
     ),
     defaults={"threshold": 3.0, "error_threshold": 5.0, "pad_dex": 0.1, "floor_dex": 0.05,
-              "teff_pad_dex": 0.02, "teff_floor_dex": 0.01,
+              "teff_pad_dex": 0.02, "teff_floor_dex": 0.01, "teff_sigmas": 2.0,
               "assumed_logg_dex": 0.15, "assumed_log_dex": 0.05,
               "assumed_teff_fraction": 0.02},
 )
