@@ -4,17 +4,21 @@ Writes demo catalogues (``catcheck demo`` data) of the requested sizes, then for
 times, each case in its own fresh Python process so that peak memory (RSS) is its own:
 
 * ``scan``: a plain pyarrow read of the columns the profile needs, batch by batch;
-* ``check``: ``catcheck.check`` with the given packs, writing a full report.
+* ``core``: ``catcheck.check`` with the core pack, writing a full report;
+* ``all``: the default packs (core, evolution, clusters: includes the two-pass group
+  check), one worker;
+* ``all-w2``: the same with ``--workers 2``.
 
 It prints the seconds, the ratio of each case to the scan of the same size in the same
-benchmark session, and the peak RSS.  Usage::
+benchmark session, and the peak RSS.  Usage (after ``pip install .``)::
 
-    python benchmarks/run.py --rows 2000000 10000000 [--packs core] [--data DIR]
+    python benchmarks/run.py --rows 2000000 10000000 [--cases scan core all] [--data DIR]
 """
 
 from __future__ import annotations
 
 import argparse
+import importlib
 import json
 import resource
 import subprocess
@@ -42,19 +46,30 @@ def case_scan(catalogue: Path, profile: Path, batch_rows: int) -> None:
     assert rows > 0
 
 
-def case_check(catalogue: Path, profile: Path, batch_rows: int, packs: list[str],
-               out: Path) -> None:
+CASES = {
+    "core": (["core"], 1),
+    "all": (["core", "evolution", "clusters"], 1),
+    "all-w2": (["core", "evolution", "clusters"], 2),
+}
+
+
+def case_check(catalogue: Path, profile: Path, batch_rows: int, case: str, out: Path) -> None:
     import catcheck
 
-    catcheck.check(catalogue, profile, packs, out=out, fail_on="none", batch_rows=batch_rows)
+    packs, workers = CASES[case]
+    catcheck.check(catalogue, profile, packs, out=out, fail_on="none", batch_rows=batch_rows,
+                   workers=workers)
 
 
 def child(args: argparse.Namespace) -> None:
+    # imports are not part of the timed work
+    importlib.import_module("pyarrow.parquet")
+    importlib.import_module("catcheck.checks")
     started = time.perf_counter()
-    if args.case == "scan":
+    if args.child == "scan":
         case_scan(args.catalogue, args.profile, args.batch_rows)
     else:
-        case_check(args.catalogue, args.profile, args.batch_rows, args.packs, args.out)
+        case_check(args.catalogue, args.profile, args.batch_rows, args.child, args.out)
     print(json.dumps({"seconds": time.perf_counter() - started, "peak_rss_mb": peak_rss_mb()}))
 
 
@@ -62,7 +77,7 @@ def run_case(case: str, catalogue: Path, profile: Path, args: argparse.Namespace
              out: Path) -> dict[str, float]:
     command = [sys.executable, __file__, "--child", case, "--catalogue", str(catalogue),
                "--profile", str(profile), "--batch-rows", str(args.batch_rows),
-               "--out", str(out), "--packs", *args.packs]
+               "--out", str(out)]
     done = subprocess.run(command, capture_output=True, text=True)
     if done.returncode:
         sys.exit(f"benchmark case {case!r} failed:\n{done.stderr.strip()}")
@@ -72,26 +87,26 @@ def run_case(case: str, catalogue: Path, profile: Path, args: argparse.Namespace
 def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
     parser.add_argument("--rows", type=int, nargs="+", default=[2_000_000])
-    parser.add_argument("--packs", nargs="+", default=["core"])
+    parser.add_argument("--cases", nargs="+", default=["scan", "core", "all", "all-w2"],
+                        choices=["scan", *CASES])
     parser.add_argument("--batch-rows", type=int, default=262_144)
     parser.add_argument("--repeat", type=int, default=2, help="best of N runs per case")
     parser.add_argument("--data", type=Path, default=None,
                         help="where demo catalogues are written and kept (default: temp)")
-    parser.add_argument("--child", choices=["scan", "check"], help=argparse.SUPPRESS)
+    parser.add_argument("--child", choices=["scan", *CASES], help=argparse.SUPPRESS)
     parser.add_argument("--catalogue", type=Path, help=argparse.SUPPRESS)
     parser.add_argument("--profile", type=Path, help=argparse.SUPPRESS)
     parser.add_argument("--out", type=Path, help=argparse.SUPPRESS)
     args = parser.parse_args()
     if args.child:
-        args.case = args.child
         child(args)
         return
 
     from catcheck.demo import write_demo
 
     data = args.data or Path(tempfile.mkdtemp(prefix="catcheck-bench-"))
-    print(f"packs: {' '.join(args.packs)}; batch rows: {args.batch_rows:,}; "
-          f"best of {args.repeat}")
+    print(f"batch rows: {args.batch_rows:,}; best of {args.repeat}; peak RSS per case "
+          "(each case in its own process)")
     print(f"{'rows':>12} {'case':<8} {'seconds':>9} {'ratio':>7} {'peak RSS MB':>12}")
     for rows in args.rows:
         folder = data / f"demo-{rows}"
@@ -99,7 +114,8 @@ def main() -> None:
             write_demo(folder, rows=rows, seed=1)
         catalogue, profile = folder / "catalogue.parquet", folder / "profile.toml"
         results = {}
-        for case in ("scan", "check"):
+        cases = ["scan", *(c for c in args.cases if c != "scan")]
+        for case in cases:
             runs = [run_case(case, catalogue, profile, args, folder / "report")
                     for _ in range(args.repeat)]
             results[case] = min(runs, key=lambda r: r["seconds"])
