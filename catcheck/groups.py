@@ -167,9 +167,8 @@ class _BottomSample:
     def summary(self, groups: int) -> GroupSummary:
         self._merge()
         self._grow(groups)
-        values = self.values.astype(float)
-        median = _group_median(self.codes, values, groups)
-        deviation = np.abs(values - median[self.codes])
+        median = _group_median(self.codes, self.values, groups)
+        deviation = np.abs(self.values - median[self.codes].astype(np.float32))
         spread = MAD_TO_SIGMA * _group_median(self.codes, deviation, groups)
         return GroupSummary(self.counts.copy(), median, spread)
 
@@ -185,8 +184,8 @@ def _group_median(codes: np.ndarray, values: np.ndarray, groups: int) -> np.ndar
     """Median of ``values`` per group code (NaN for groups without values)."""
     median = np.full(groups, np.nan)
     if len(codes):
-        by_group = pd.Series(values).groupby(codes, sort=False).median()
-        median[by_group.index.to_numpy()] = by_group.to_numpy()
+        by_group = pd.Series(values, copy=False).groupby(codes, sort=False).median()
+        median[by_group.index.to_numpy()] = by_group.to_numpy(dtype=float)
     return median
 
 
@@ -206,8 +205,11 @@ class GroupAccumulator:
             self.samples[name].add(codes, hashes, np.asarray(variable(batch), dtype=float))
 
     def finish(self, groups: int) -> dict[str, GroupSummary]:
-        """Statistics by variable, for ``groups`` group codes."""
-        return {name: sample.summary(groups) for name, sample in self.samples.items()}
+        """Statistics by variable, for ``groups`` group codes; the samples are released."""
+        summaries = {}
+        for name in list(self.samples):
+            summaries[name] = self.samples.pop(name).summary(groups)
+        return summaries
 
 
 def group_labels_at(column: pa.Array, rows: np.ndarray) -> list[str]:
