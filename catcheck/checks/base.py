@@ -78,6 +78,8 @@ def fixed_needs(*quantities: str) -> Callable[[Params], tuple[str, ...]]:
 
 def combined_sigma(*terms: np.ndarray | float, floor: float = 0.0) -> np.ndarray:
     """Quadrature sum of independent 1-sigma terms, never below ``floor``."""
+    if len(terms) == 1:
+        return np.maximum(np.abs(np.asarray(terms[0], dtype=float)), floor)
     total = sum(np.square(np.asarray(t, dtype=float)) for t in terms)
     return np.maximum(np.sqrt(total), floor)
 
@@ -95,15 +97,12 @@ def excess_sigma(values: np.ndarray, sigma: np.ndarray | float, low: float | np.
     """How far ``values`` lie outside ``[low, high]``, in units of ``sigma``.
 
     0 inside the band; ``inf`` outside it where sigma is 0, and for infinite values; NaN
-    where the value is missing.
+    where the value (or the band) is missing.
     """
     values = np.asarray(values, dtype=float)
     with np.errstate(invalid="ignore", divide="ignore"):
-        excess = np.maximum(np.maximum(low - values, values - high), 0.0)
-        z = np.where(excess > 0, excess / sigma, 0.0)
-    z[np.isinf(values)] = np.inf
-    z[np.isnan(values)] = np.nan
-    return z
+        excess = np.maximum(np.maximum(low - values, values - high), 0.0)  # NaN propagates
+        return np.divide(excess, sigma, out=np.zeros_like(excess), where=excess != 0.0)
 
 
 def phase_is(batch: StarBatch, *codes: str) -> np.ndarray:

@@ -189,8 +189,9 @@ def evaluate_blue_straggler(batch: StarBatch, params: Params) -> Outcome:
     candidates = np.flatnonzero(phase_is(batch, "MS") & in_cluster)
 
     def turnoff_and_slope(age: np.ndarray, feh: np.ndarray) -> tuple[np.ndarray, ...]:
-        # cluster members share their cluster's age and [M/H]: solve once per pair
-        pairs, inverse = np.unique(age + 1j * feh, return_inverse=True)
+        # members share their cluster's age and nearly its [M/H]: solve once per distinct
+        # pair, [M/H] to 0.01 dex (changing the turn-off mass by < 0.1%)
+        pairs, inverse = np.unique(age + 1j * np.round(feh, 2), return_inverse=True)
         turnoff = evolution.main_sequence_turnoff_mass(pairs.real, pairs.imag)
         slope = evolution.log_main_sequence_lifetime_and_slope(turnoff, pairs.imag)[1]
         return turnoff[inverse], slope[inverse]

@@ -194,25 +194,53 @@ def envelope_bounds(phase_codes: ArrayLike, log_teff: ArrayLike) -> EnvelopeBoun
     codes = np.asarray(phase_codes)
     log_teff = np.asarray(log_teff, dtype=float)
     codes, log_teff = np.broadcast_arrays(codes, log_teff)
-    shape = log_teff.shape
-    out = {name: np.full(shape, np.nan) for name in BOUND_NAMES}
-    covered = np.zeros(shape, dtype=bool)
-    outside = np.zeros(shape, dtype=bool)
-    lookups = _lookups()
-    for code in np.unique(codes):
-        lookup = lookups.get(int(code))
-        if lookup is None:
-            continue
-        rows = codes == code
-        covered |= rows
-        t = log_teff[rows]
-        index = np.searchsorted(lookup.edges, t, side="right") - 1
-        inside = (index >= 0) & (index < len(lookup.edges) - 1)
-        outside[rows] = np.isfinite(t) & ~inside
-        index = np.clip(index, 0, len(lookup.edges) - 2)
-        for name, values in lookup.bounds.items():
-            out[name][rows] = np.where(inside, values[index], np.nan)
+    grid = _grid()
+    phase = np.where((codes >= 0) & (codes < len(PHASE_CODES)), codes, len(PHASE_CODES))
+    with np.errstate(invalid="ignore"):
+        # a Teff on a bin edge belongs to the bin above (1e-7 bin absorbs rounding)
+        position = np.floor((log_teff - grid.start) / grid.width + 1e-7)
+        on_grid = (position >= 0) & (position < grid.bins)
+    position = np.where(on_grid, position, 0).astype(np.intp)
+    in_range = grid.in_range[phase, position] & on_grid
+    covered = grid.covered[phase]
+    out = {name: np.where(in_range, table[phase, position], np.nan)
+           for name, table in grid.bounds.items()}
+    outside = covered & np.isfinite(log_teff) & ~in_range
     return EnvelopeBounds(**out, covered=covered, outside_range=outside)
+
+
+@dataclass(frozen=True)
+class _Grid:
+    """Every phase's lookup on one shared Teff grid: bounds[name][phase code, bin]."""
+
+    start: float
+    width: float
+    bins: int
+    bounds: dict[str, FloatArray]
+    in_range: BoolArray
+    covered: BoolArray  # by phase code; the extra last code stands for 'no phase'
+
+
+@cache
+def _grid() -> _Grid:
+    """The per-phase lookups laid on one grid, so a lookup is a single gather per bound."""
+    lookups = _lookups()
+    width = float(_table()[1]["bin width"])
+    start = min(lookup.edges[0] for lookup in lookups.values())
+    stop = max(lookup.edges[-1] for lookup in lookups.values())
+    bins = round((stop - start) / width)
+    codes = len(PHASE_CODES) + 1
+    bounds = {name: np.full((codes, bins), np.nan) for name in BOUND_NAMES}
+    in_range = np.zeros((codes, bins), dtype=bool)
+    covered = np.zeros(codes, dtype=bool)
+    for code, lookup in lookups.items():
+        first = round((lookup.edges[0] - start) / width)
+        span = slice(first, first + len(lookup.edges) - 1)
+        for name, values in lookup.bounds.items():
+            bounds[name][code, span] = values
+        in_range[code, span] = True
+        covered[code] = True
+    return _Grid(start, width, bins, bounds, in_range, covered)
 
 
 def logg_bounds(phase_codes: ArrayLike, log_teff: ArrayLike) -> tuple[FloatArray, FloatArray]:
