@@ -39,7 +39,7 @@ class StarBatch:
     group_codes: np.ndarray | None = None
     group_stats: dict[str, GroupSummary] = field(default_factory=dict)
     _missing_errors: dict[str, np.ndarray] = field(default_factory=dict, repr=False)
-    _has: dict[str, np.ndarray] = field(default_factory=dict, repr=False)
+    _has: dict[str | tuple[str, ...], np.ndarray] = field(default_factory=dict, repr=False)
     _log10: dict[str, np.ndarray] = field(default_factory=dict, repr=False)
     _log_errors: dict[str, np.ndarray] = field(default_factory=dict, repr=False)
 
@@ -60,10 +60,17 @@ class StarBatch:
 
     def has_all(self, quantities: Sequence[str]) -> np.ndarray:
         """Rows where every one of ``quantities`` has a usable value (a new array)."""
-        present = np.ones(self.size, dtype=bool)
-        for quantity in quantities:
-            present &= self.has(quantity)
-        return present
+        key = tuple(sorted(quantities))
+        if key not in self._has:
+            present = np.ones(self.size, dtype=bool)
+            for quantity in key:
+                present &= self.has(quantity)
+            self._has[key] = present
+        return self._has[key].copy()
+
+    def lacks_some_error(self, quantity: str) -> bool:
+        """True when the catalogue's 1-sigma of ``quantity`` is missing in some row."""
+        return quantity not in self.errors or bool(self.missing_error(quantity).any())
 
     def missing_error(self, quantity: str) -> np.ndarray:
         """Rows where the catalogue's 1-sigma of ``quantity`` is missing (computed once)."""

@@ -264,7 +264,9 @@ def _assumed_errors(needs: Sequence[str], stars: StarBatch, available: np.ndarra
     for quantity in needs:
         if not QUANTITIES[quantity].numeric:
             continue
-        if quantity not in stars.errors or (stars.missing_error(quantity) & available).any():
+        if stars.lacks_some_error(quantity) and (
+                quantity not in stars.errors
+                or (stars.missing_error(quantity) & available).any()):
             assumed.append(quantity)
     return assumed
 
