@@ -15,6 +15,7 @@ import click
 
 from catcheck import __version__
 from catcheck.errors import EXIT_GATE_FAILED, EXIT_PASSED, EXIT_USAGE, CatcheckError
+from catcheck.tuning import keep_freed_memory
 
 EPILOG = ("Exit codes: 0 gate passed; 1 gate failed; 2 usage, profile or rule-pack error; "
           "3 catalogue missing or unreadable.")
@@ -106,6 +107,7 @@ def explain(rule_id: str, packs: tuple[str, ...]) -> None:
 
 def main(argv: list[str] | None = None) -> None:
     """Entry point: run the command line, turning every error into one line and an exit code."""
+    keep_freed_memory()
     try:
         cli.main(args=argv, prog_name="catcheck", standalone_mode=False)
     except CatcheckError as exc:
