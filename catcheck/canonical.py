@@ -222,8 +222,10 @@ class GroupValues:
             if quantity in self.errors:
                 group_error = _by_code(self.errors[quantity], codes)
                 own_error = stars.errors.get(quantity)
-                stars.errors[quantity] = group_error if own_error is None else np.where(
-                    missing, group_error, own_error)
+                if own_error is None:  # members with their own value keep 'no error'
+                    own_error = np.full(stars.size, np.nan)
+                stars.errors[quantity] = np.where(missing, group_error, own_error)
+                stars._missing_errors.pop(quantity, None)
 
 
 def _by_code(by_group: np.ndarray, codes: np.ndarray) -> np.ndarray:
@@ -258,6 +260,12 @@ def load_group_values(profile: Profile, keys: GroupKeys) -> GroupValues | None:
     values, errors = {}, {}
     for quantity, mapping in table_spec.quantities.items():
         assert mapping.conversion is not None
+        for column in mapping.columns:
+            kind = table.schema.field(column).type
+            if not (pa.types.is_floating(kind) or pa.types.is_integer(kind)):
+                raise ProfileError(f"column {column!r} of the group table holds {kind}, not "
+                                   "numbers", where=f"{profile.source}: [groups.quantities."
+                                   f"{quantity}]", fix="map a numeric column")
         raw = to_float(table[mapping.column].combine_chunks())
         canonical = mapping.conversion.values(raw)
         values[quantity] = _scatter(canonical, codes, size)

@@ -36,7 +36,8 @@ def cli() -> None:
 @click.option("--profile", "profile_path", required=True, type=click.Path(dir_okay=False),
               help="TOML profile mapping catalogue columns to quantities.")
 @click.option("--rules", "packs", multiple=True, metavar="PACK_OR_FILE",
-              help="Rule pack name or file; repeat for several (default: core).")
+              help="Rule pack name or file; repeat for several "
+                   "(default: core, evolution, clusters).")
 @click.option("--out", default="catcheck-report", show_default=True,
               type=click.Path(file_okay=False), help="Report directory.")
 @click.option("--fail-on", default="error", show_default=True,

@@ -247,7 +247,7 @@ def _tally(rule: Rule, stars: StarBatch, outcome: Outcome) -> tuple[RuleTally, p
     if not len(positions):
         return tally, None
     severity = np.full(len(positions), rule.severity, dtype=object)
-    if outcome.beyond_doubt is not None and rule.severity != "error":
+    if outcome.beyond_doubt is not None and rule.severity == "warning":
         escalate = outcome.beyond_doubt[positions]
         severity[escalate] = "error"
         tally.escalated = int(escalate.sum())
@@ -264,9 +264,9 @@ def _assumed_errors(needs: Sequence[str], stars: StarBatch, available: np.ndarra
     for quantity in needs:
         if not QUANTITIES[quantity].numeric:
             continue
-        if stars.lacks_some_error(quantity) and (
-                quantity not in stars.errors
-                or (stars.missing_error(quantity) & available).any()):
+        if quantity not in stars.errors or (
+                stars.lacks_some_error(quantity)  # cheap test first: most columns are full
+                and (stars.missing_error(quantity) & available).any()):
             assumed.append(quantity)
     return assumed
 

@@ -21,11 +21,6 @@ FLAG_SCHEMA = pa.schema(
 )
 
 
-def empty_flags() -> pa.Table:
-    """A flags table with no rows."""
-    return FLAG_SCHEMA.empty_table()
-
-
 def flag_records(rule_id: str, severity: str | np.ndarray, first_row: int,
                  positions: np.ndarray,
                  ids: pa.Array, messages: Sequence[str], observed: np.ndarray | None,

@@ -11,7 +11,7 @@ FAIL_ON = ("error", "warning", "none")
 
 @dataclass(frozen=True)
 class Gate:
-    """When a run fails: any flag at or above ``fail_on``, or too many flagged rows.
+    """When a run fails: any flag at or above ``fail_on``, too many flagged rows, or no rows.
 
     ``max_flagged_fraction`` counts rows with at least one error or warning flag
     (info flags never fail a run).
@@ -32,6 +32,8 @@ class Gate:
                 rows_by_severity: dict[str, int]) -> tuple[bool, str]:
         """(passed, reason) for a run with these counts."""
         reasons = []
+        if rows == 0:
+            reasons.append("the catalogue has no rows")
         if self.fail_on != "none":
             counted = ("error",) if self.fail_on == "error" else ("error", "warning")
             n = sum(flags_by_severity.get(s, 0) for s in counted)

@@ -51,19 +51,19 @@ class GroupKeys:
     def __init__(self) -> None:
         self.code_of: dict[str, int] = {}
 
-    @property
-    def labels(self) -> list[str]:
-        """Group labels by code."""
-        return list(self.code_of)
-
     def register(self, labels: list[object]) -> np.ndarray:
         """Codes of ``labels`` (None gives NO_GROUP), adding labels not seen before.
 
         Labels are compared as text, so a group table keyed by the integer 17 matches a
-        catalogue column holding "17".
+        catalogue column holding "17" or 17.0; a NaN label means no group.
         """
         codes = np.empty(len(labels), dtype=np.int64)
         for i, label in enumerate(labels):
+            if isinstance(label, float):
+                if label != label:  # NaN: no group
+                    label = None
+                elif label.is_integer():  # 17.0 is the group "17"
+                    label = int(label)
             if label is None:
                 codes[i] = NO_GROUP
             else:

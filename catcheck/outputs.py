@@ -11,6 +11,8 @@ import json
 import os
 import shutil
 import tempfile
+from collections.abc import Iterator
+from contextlib import contextmanager
 from pathlib import Path
 from types import TracebackType
 from typing import Any
@@ -53,22 +55,35 @@ class ReportDirectory:
 
     def add_flags(self, flags: pa.Table) -> None:
         """Append a batch of flag records (streamed to disk)."""
-        if self._writer is None:
-            self._writer = pq.ParquetWriter(self._flags_path, FLAG_SCHEMA)
-        self._writer.write_table(flags)
+        with self._writing():
+            if self._writer is None:
+                self._writer = pq.ParquetWriter(self._flags_path, FLAG_SCHEMA)
+            self._writer.write_table(flags)
 
     def flags_file(self) -> Path:
         """The staged flags in Parquet (closed and complete)."""
-        if self._writer is None:
-            pq.write_table(FLAG_SCHEMA.empty_table(), self._flags_path)
-        else:
-            self._writer.close()
+        with self._writing():
+            if self._writer is None:
+                pq.write_table(FLAG_SCHEMA.empty_table(), self._flags_path)
+            else:
+                self._writer.close()
         self._writer = None
         return self._flags_path
 
     def write_text(self, name: str, text: str) -> None:
         """Stage a text file."""
-        (self.staging / name).write_text(text, encoding="utf-8")
+        with self._writing():
+            (self.staging / name).write_text(text, encoding="utf-8")
+
+    @contextmanager
+    def _writing(self) -> Iterator[None]:
+        """Turn a failed write (disk full, permissions) into one clear error."""
+        try:
+            yield
+        except OSError as exc:
+            raise OutputError(f"cannot write the report: {exc.strerror or exc}",
+                              where=str(self.out_dir),
+                              fix="free some space or choose another --out") from None
 
     def write_json(self, name: str, data: Any) -> None:
         """Stage a JSON file (stable key order as given, 2-space indent)."""
@@ -79,10 +94,14 @@ class ReportDirectory:
         parquet = self.flags_file()
         name = f"flags.{self.flags_format}"
         if self.flags_format != "parquet":
-            _convert_flags(parquet, self.staging / name, self.flags_format)
+            with self._writing():
+                _convert_flags(parquet, self.staging / name, self.flags_format)
             parquet.unlink()
         written = {}
         try:
+            for other in FORMATS:  # a flags file of another format is from an older run
+                if other != self.flags_format:
+                    (self.out_dir / f"flags.{other}").unlink(missing_ok=True)
             for path in sorted(self.staging.iterdir()):
                 target = self.out_dir / path.name
                 os.replace(path, target)

@@ -140,6 +140,11 @@ def _add_entry(rules: dict[str, Rule], entry: dict[str, Any], path: Path) -> Non
                                 or f"rule keys are: {', '.join(_RULE_KEYS)}")
     defines = any(k in entry for k in ("check", "when", "require"))
     if rule_id in rules:
+        extra = [k for k in entry if k not in ("id", "severity", "params", "enabled", "_pack")]
+        if extra and not defines:
+            raise RulePackError(f"an override can change severity, params or enabled only, "
+                                f"not {', '.join(extra)}", where=where,
+                                fix="define a new rule with its own id instead")
         if defines:
             raise RulePackError(
                 f"rule {rule_id!r} is already defined by pack {rules[rule_id].pack!r}",
@@ -147,8 +152,13 @@ def _add_entry(rules: dict[str, Rule], entry: dict[str, Any], path: Path) -> Non
         rules[rule_id] = _override(rules[rule_id], entry, where)
         return
     if not defines:
+        home = next((name for name in builtin_packs() if name != path.stem and any(
+            e.get("id") == rule_id for e in _read_pack(builtin_packs()[name]))), None)
+        fix = (f"it is a rule of the built-in pack {home!r}: name that pack before this file, "
+               f"e.g. --rules {home} --rules {path}" if home
+               else 'give check = "..." or when/require expressions to define it')
         raise RulePackError(f"rule {rule_id!r} is not defined by an earlier pack", where=where,
-                            fix='give check = "..." or when/require expressions')
+                            fix=fix)
     rules[rule_id] = _define(rule_id, entry, where)
 
 
@@ -217,6 +227,15 @@ def _param_value(key: str, value: Any, default: Any, where: str) -> Any:
     return value
 
 
+def _references(value: Any, where: str) -> tuple[str, ...]:
+    """A pack's ``references``: one string or a list of strings."""
+    if isinstance(value, str):
+        return (value,)
+    if isinstance(value, list) and all(isinstance(v, str) for v in value):
+        return tuple(value)
+    raise RulePackError("references must be a string or a list of strings", where=where)
+
+
 def _expression_check(entry: Mapping[str, Any], where: str) -> Check:
     """A check built from a rule's ``when``/``require``/``message`` expressions."""
     from catcheck.expression import ExpressionError, compile_expression, compile_message
@@ -251,6 +270,6 @@ def _expression_check(entry: Mapping[str, Any], where: str) -> Check:
         formula=f"when: {entry.get('when', 'always')}\nrequire: {entry['require']}",
         caveats=str(entry.get("caveats", "(not documented by the pack)")),
         example=str(entry.get("example", "(none given)")),
-        references=tuple(entry.get("references", ())),
+        references=_references(entry.get("references", []), where),
     )
     return Check("expression", lambda params: needed, evaluate, doc, {}, uses_errors=False)

@@ -269,4 +269,9 @@ def _groups(table: Any, source: str, base: Path, group_column: str | None) -> Gr
     path = _string(table, "table", source, "[groups]", required=True)
     key = _string(table, "key", source, "[groups]", required=True)
     quantities = _quantities(table.get("quantities", {}), source, "groups.quantities")
+    for name in quantities:
+        if not QUANTITIES[name].numeric:
+            raise ProfileError(f"a group table can give numeric quantities only, not {name}",
+                               where=f"{source}: [groups.quantities.{name}]",
+                               fix="map it in the catalogue's [quantities] instead")
     return GroupTable(base / path, key, quantities)

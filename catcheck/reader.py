@@ -29,11 +29,12 @@ def resolve_sources(sources: Sequence[str | Path]) -> list[Path]:
     for source in sources:
         text = str(source)
         if _GLOB_CHARS & set(text):
-            matches = sorted(glob.glob(text, recursive=True))
+            matches = [Path(m) for m in sorted(glob.glob(text, recursive=True))
+                       if Path(m).is_file()]
             if not matches:
                 raise CatalogueError("the pattern matches no file", where=text,
                                      fix="check the path and quote the pattern")
-            files.extend(Path(m) for m in matches if Path(m).is_file())
+            files.extend(matches)
             continue
         path = Path(text)
         if path.is_dir():

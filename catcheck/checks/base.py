@@ -48,8 +48,9 @@ class Outcome:
     expected: np.ndarray | None = None
     deviation: np.ndarray | None = None
     applies: np.ndarray | None = None
-    #: rows so far off that no real star explains them: their flags become errors even
-    #: when the rule's severity is warning (checks that do this set Check.escalates)
+    #: rows so far off that no real star explains them: their flags become errors when
+    #: the rule's severity is warning (never when a pack set it to info); checks that do
+    #: this set Check.escalates
     beyond_doubt: np.ndarray | None = None
 
 

@@ -42,12 +42,17 @@ class MemberQuantity:
 
 
 def member_check(name: str, quantity: str, member: MemberQuantity, doc: Documentation,
-                 defaults: dict) -> Check:
-    """A check flagging members far from their group's median of ``member``."""
+                 defaults: dict, variable: str | None = None) -> Check:
+    """A check flagging members far from their group's median of ``member``.
+
+    ``variable`` names the group statistic (default: the check's name); checks that
+    aggregate the same quantity share one name, so pass 1 samples it once.
+    """
+    variable = variable or name
 
     def evaluate(batch: StarBatch, params: Params) -> Outcome:
         values = member.values(batch)
-        count, median, spread = batch.group_statistic(name)
+        count, median, spread = batch.group_statistic(variable)
         with np.errstate(invalid="ignore", divide="ignore"):
             centre_error = MEDIAN_EFFICIENCY * spread / np.sqrt(count)
         sigma = combined_sigma(member.sigma(batch, params), member.intrinsic(params, median),
@@ -70,10 +75,15 @@ def member_check(name: str, quantity: str, member: MemberQuantity, doc: Document
         return Outcome(failed, describe, values, median, deviation, applies)
 
     return Check(name=name, needs=fixed_needs(quantity), evaluate=evaluate, doc=doc,
-                 defaults=defaults, group_variables={name: member.values})
+                 defaults=defaults, group_variables={variable: member.values})
 
 
-def _log_age(batch: StarBatch) -> np.ndarray:
+#: the group statistic of members' log ages, shared by every rule that needs a cluster's age
+CLUSTER_LOG_AGE = "cluster_log_age"
+
+
+def cluster_log_age(batch: StarBatch) -> np.ndarray:
+    """log10 of each member's age (yr): pass 1 turns it into its cluster's median age."""
     return batch.log10("age")
 
 
@@ -92,7 +102,7 @@ METALLICITY = MemberQuantity(
 )
 AGE = MemberQuantity(
     "log age", "dex(yr)",
-    values=_log_age,
+    values=cluster_log_age,
     sigma=lambda batch, params: batch.log_sigma("age", params["assumed_error"]),
     intrinsic=lambda params, median: params["intrinsic_dex"],
 )
@@ -169,4 +179,5 @@ AGE_CHECK = member_check(
     ),
     {"threshold": 5.0, "intrinsic_dex": 0.1, "assumed_error": 0.1,
      "floor": 0.02, "min_members": 5.0},
+    variable=CLUSTER_LOG_AGE,
 )

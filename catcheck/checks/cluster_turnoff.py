@@ -16,7 +16,11 @@ from catcheck.checks.base import (
     fixed_needs,
     phase_is,
 )
-from catcheck.checks.cluster_members import MEDIAN_EFFICIENCY
+from catcheck.checks.cluster_members import (
+    CLUSTER_LOG_AGE,
+    MEDIAN_EFFICIENCY,
+    cluster_log_age,
+)
 from catcheck.checks.evolution import GIANT_PHASES, lifetime_mass, metallicity, on_rows
 from catcheck.groups import group_labels_at
 from catcheck.physics.evolution import log_main_sequence_lifetime
@@ -40,7 +44,7 @@ def implied_log_age(batch: StarBatch) -> np.ndarray:
 def evaluate(batch: StarBatch, params: Params) -> Outcome:
     """Flag evolved members whose cluster age disagrees with the age their masses imply."""
     count, implied, spread = batch.group_statistic(NAME)
-    log_age = batch.log10("age")
+    _, log_age, _ = batch.group_statistic(CLUSTER_LOG_AGE)  # the members' median age
     with np.errstate(invalid="ignore", divide="ignore"):
         centre_error = MEDIAN_EFFICIENCY * spread / np.sqrt(count)
     sigma = combined_sigma(batch.log_sigma("age", params["assumed_age_dex"]), centre_error,
@@ -70,9 +74,10 @@ CHECK = Check(
     needs=fixed_needs("age", "mass", "phase"),
     evaluate=evaluate,
     escalates=True,
-    group_variables={NAME: implied_log_age},
+    group_variables={NAME: implied_log_age, CLUSTER_LOG_AGE: cluster_log_age},
     doc=Documentation(
-        what="Compares each cluster's catalogued age with the age implied by its own "
+        what="Compares each cluster's age (the median of its members' catalogued ages) "
+        "with the age implied by its own "
         "evolved members (SGB, RGB, RC, HB, CHEB): the median main-sequence lifetime of "
         "their masses.  The evolved members are flagged, naming the cluster.",
         why="Stars just past the main sequence have lived their main-sequence lifetime, so "

@@ -62,7 +62,9 @@ def evaluate(batch: StarBatch, params: Params) -> Outcome:
             for o, e, m, d in at_rows(rows, observed, expected, mass, deviation)
         ]
 
-    return Outcome(failed, describe, observed, expected, np.abs(deviation))
+    # zero or negative L or M have no logarithm: the range rules flag them
+    applies = np.isfinite(observed) & np.isfinite(expected)
+    return Outcome(failed & applies, describe, observed, expected, np.abs(deviation), applies)
 
 
 CHECK = Check(

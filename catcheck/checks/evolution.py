@@ -25,6 +25,7 @@ from catcheck.checks.base import (
     fixed_needs,
     phase_is,
 )
+from catcheck.checks.cluster_members import CLUSTER_LOG_AGE, cluster_log_age
 from catcheck.physics import evolution
 from catcheck.physics.stellar import LN10
 
@@ -183,7 +184,9 @@ def evaluate_white_dwarf_too_young(batch: StarBatch, params: Params) -> Outcome:
 def evaluate_blue_straggler(batch: StarBatch, params: Params) -> Outcome:
     """Main-sequence cluster members more massive than their cluster's turn-off."""
     mass = batch.values["mass"]
-    log_age = batch.log10("age")
+    # the cluster's age is its members' median age (pass 1), else the member's own
+    _, cluster_age, _ = batch.group_statistic(CLUSTER_LOG_AGE)
+    log_age = np.where(np.isfinite(cluster_age), cluster_age, batch.log10("age"))
     in_cluster = batch.group_codes >= 0 if batch.group_codes is not None else np.zeros(
         batch.size, dtype=bool)
     candidates = np.flatnonzero(phase_is(batch, "MS") & in_cluster)
@@ -335,7 +338,7 @@ BLUE_STRAGGLER = Check(
     name="blue_straggler_candidate",
     needs=fixed_needs("age", "mass", "phase"),
     evaluate=evaluate_blue_straggler,
-    needs_group=True,
+    group_variables={CLUSTER_LOG_AGE: cluster_log_age},
     doc=Documentation(
         what="Marks a main-sequence cluster member more massive than its cluster's "
         "turn-off mass.",
@@ -343,7 +346,7 @@ BLUE_STRAGGLER = Check(
         "turn-off; those that are are blue stragglers (mergers, mass transfer), unresolved "
         "binaries with overestimated masses, or non-members.",
         formula="M_TO(age, [M/H]): the initial mass whose PARSEC v1.2S main-sequence "
-        "lifetime equals the age\n"
+        "lifetime equals the cluster's age (the median age of its members)\n"
         "sigma^2 = s_logM^2 + (s_logage / slope)^2 + intrinsic_dex^2\n"
         "flag when log M - log M_TO > threshold * sigma (members of a group only)",
         caveats="Always a warning, never an error: blue stragglers are real and common in "

@@ -113,7 +113,7 @@ def evaluate(batch: StarBatch, params: Params) -> Outcome:
     result = _assess(batch.phase, log_teff, s_teff, compared, params)
     with np.errstate(invalid="ignore"):
         suspects = np.flatnonzero(result.deviation > params["threshold"])
-    for sign in (-1.0, 1.0):
+    for sign in (-1.0, 1.0) if compared else ():  # nothing to re-judge without log g, L, R
         shifted_teff = log_teff[suspects] + sign * params["teff_sigmas"] * s_teff[suspects]
         retry = _assess(batch.phase[suspects], shifted_teff, s_teff[suspects],
                         [(q, v[suspects], e[suspects]) for q, v, e in compared], params,

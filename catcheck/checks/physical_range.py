@@ -28,7 +28,8 @@ DOC = Documentation(
     why="No star can have these values; a row that does holds a unit error, a sentinel "
     "value such as -999 or 99.99 that should have been null, or a corrupted number.",
     formula="excess = max(low - x, x - high, 0); flag when excess > threshold * sigma_x "
-    "(sigma_x from the catalogue, 0 when it gives none; non-finite x is always flagged)",
+    "(sigma_x from the catalogue, 0 when it gives none; non-finite x is always flagged, "
+    "and so is x <= 0 for a quantity whose lower limit is positive)",
     caveats="The limits are deliberately wide so that no real object is flagged; they do "
     "not say a value inside them is right.  Substellar objects (brown dwarfs, Teff down "
     "to ~250 K) lie inside the Teff limit on purpose.",
@@ -67,6 +68,8 @@ class RangeSchema:
         candidates = np.flatnonzero(outside)
         sigma = batch.error_or(params["quantity"], 0.0)[candidates]
         z = excess_sigma(values[candidates], sigma, low, high)
+        if low > 0:  # zero or negative where only positive values exist: no error excuses it
+            z[values[candidates] <= 0] = np.inf
         failing = candidates
         if len(candidates):
             result = self.checks[rule.id](pd.Series(z, index=candidates))

@@ -33,8 +33,8 @@ DOC = Documentation(
     "stars with extended atmospheres have ill-defined radii; luminosities derived from "
     "photometry carry distance and extinction errors that catalogues often omit.",
     example="Teff = 5772 K, R = 1.0 Rsun predicts log L = 0.00; a catalogue log L of 0.50 "
-    "with 0.05 dex error (R and Teff errors 2% each, adding 0.0087 and 0.035 dex) is "
-    "0.50 / 0.062 = 8.1 sigma off and is flagged.",
+    "with 0.05 dex error (R and Teff errors 2% each, adding 2 x 0.0087 = 0.017 and "
+    "4 x 0.0087 = 0.035 dex) is 0.50 / 0.063 = 7.9 sigma off and is flagged.",
     references=(
         "Stefan (1879); Boltzmann (1884): L = 4 pi R^2 sigma T^4",
         "IAU 2015 Resolution B3 (nominal solar radius, luminosity, Teff)",
@@ -64,7 +64,9 @@ def evaluate(batch: StarBatch, params: Params) -> Outcome:
                                             sigma)
         ]
 
-    return Outcome(failed, describe, observed, expected, deviation)
+    # zero or negative L, R or Teff have no logarithm: the range rules flag them
+    applies = np.isfinite(observed) & np.isfinite(expected)
+    return Outcome(failed & applies, describe, observed, expected, deviation, applies)
 
 
 CHECK = Check(

@@ -62,7 +62,9 @@ def evaluate(batch: StarBatch, params: Params) -> Outcome:
                                             sigma)
         ]
 
-    return Outcome(failed, describe, logg, expected, deviation)
+    # zero or negative M or R have no logarithm: the range rules flag them
+    applies = np.isfinite(expected)
+    return Outcome(failed & applies, describe, logg, expected, deviation, applies)
 
 
 CHECK = Check(
