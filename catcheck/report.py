@@ -27,6 +27,8 @@ def console_summary(summary: Mapping[str, Any]) -> str:
     for rule in summary["rules"]:
         if rule["status"] == "ran":
             counts = f"{rule['checked']:>11,} {rule['skipped']:>11,} {rule['flagged']:>9,}"
+            if rule.get("flagged_as_error"):
+                counts += f"  ({rule['flagged_as_error']:,} beyond doubt: errors)"
         else:
             counts = f"  {rule['status']}"
         lines.append(f"  {rule['id']:<{width}}  {rule['severity']:<8} {counts}")
@@ -47,7 +49,7 @@ def markdown_report(summary: Mapping[str, Any],
     out = [
         "# catcheck report",
         "",
-        f"**Verdict: {'passed' if gate['passed'] else 'FAILED'}** - {gate['reason']}",
+        f"**Verdict: {'PASSED' if gate['passed'] else 'FAILED'}** - {gate['reason']}",
         "",
         f"- input: `{summary['input']}`",
         f"- profile: `{summary['profile']}`",
@@ -63,9 +65,11 @@ def markdown_report(summary: Mapping[str, Any],
         "|---|---|---:|---:|---:|---:|---|",
     ]
     for rule in summary["rules"]:
+        escalated = (f" ({rule['flagged_as_error']:,} as error)"
+                     if rule.get("flagged_as_error") else "")
         out.append(f"| `{rule['id']}` | {rule['severity']} | {rule['checked']:,} | "
-                   f"{rule['skipped']:,} | {rule['not_applicable']:,} | {rule['flagged']:,} | "
-                   f"{rule['status']} |")
+                   f"{rule['skipped']:,} | {rule['not_applicable']:,} | "
+                   f"{rule['flagged']:,}{escalated} | {rule['status']} |")
     assumed = [r for r in summary["rules"] if r.get("assumed_errors")]
     if assumed:
         out += ["", "Errors assumed where the catalogue gives none (see `catcheck explain`):"]
