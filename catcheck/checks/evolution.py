@@ -101,22 +101,31 @@ def _years(age: float) -> str:
     return f"{age / 1e9:.3g} Gyr" if age >= 1e9 else f"{age / 1e6:.3g} Myr"
 
 
+def _timescale_outcome(batch: StarBatch, params: Params, rows: np.ndarray,
+                       timescale: Callable[..., tuple[np.ndarray, np.ndarray]],
+                       mass: np.ndarray, older: bool, describe_row: Callable[..., str]
+                       ) -> Outcome:
+    """Age against a mass-dependent timescale, for the ``rows`` of one phase.
+
+    Masses outside the timescale table (0.1-199.5 Msun) are not checked, and are not
+    counted as checked.
+    """
+    log_t, slope = on_rows(np.flatnonzero(rows), batch.size, timescale, mass,
+                           metallicity(batch))
+    return _age_outcome(batch, params, rows & np.isfinite(log_t), log_t,
+                        _age_sigma(batch, params, slope), older, describe_row, extra=(mass,))
+
+
 # --- ms-lifetime ---------------------------------------------------------------------------
 
 def evaluate_ms_lifetime(batch: StarBatch, params: Params) -> Outcome:
     """Main-sequence stars older than the main-sequence lifetime of their mass."""
     mass, _ = lifetime_mass(batch)
-    applies = phase_is(batch, "MS")
-    log_t, slope = on_rows(np.flatnonzero(applies), batch.size,
-                           evolution.log_main_sequence_lifetime_and_slope, mass,
-                           metallicity(batch))
-    applies &= np.isfinite(log_t)  # masses outside the table (0.1-199.5 Msun) are not
-    return _age_outcome(           # checked, and not counted as checked
-        batch, params, applies, log_t, _age_sigma(batch, params, slope), older=True,
-        describe_row=lambda age, limit, dev, m: (
+    return _timescale_outcome(
+        batch, params, phase_is(batch, "MS"), evolution.log_main_sequence_lifetime_and_slope,
+        mass, older=True, describe_row=lambda age, limit, dev, m: (
             f"MS star of {m:.3g} Msun is {_years(age)} old, but stars of that mass leave the "
-            f"main sequence at {_years(limit)}: {dev:.1f} sigma"),
-        extra=(mass,))
+            f"main sequence at {_years(limit)}: {dev:.1f} sigma"))
 
 
 # --- evolved-too-young ---------------------------------------------------------------------
@@ -131,34 +140,23 @@ def evaluate_evolved_too_young(batch: StarBatch, params: Params) -> Outcome:
     mass, initial = lifetime_mass(batch)
     upper = np.where(initial, mass, mass * (1.0 + params["mass_loss_fraction"])
                      + params["mass_loss_msun"])
-    applies = phase_is(batch, *EVOLVED_PHASES) & (initial | phase_is(batch, *GIANT_PHASES))
-    log_t, slope = on_rows(np.flatnonzero(applies), batch.size,
-                           evolution.log_main_sequence_lifetime_and_slope, upper,
-                           metallicity(batch))
-    applies &= np.isfinite(log_t)
-    return _age_outcome(
-        batch, params, applies, log_t, _age_sigma(batch, params, slope), older=False,
-        describe_row=lambda age, limit, dev, m: (
+    rows = phase_is(batch, *EVOLVED_PHASES) & (initial | phase_is(batch, *GIANT_PHASES))
+    return _timescale_outcome(
+        batch, params, rows, evolution.log_main_sequence_lifetime_and_slope, upper,
+        older=False, describe_row=lambda age, limit, dev, m: (
             f"evolved star is {_years(age)} old, but a star of initial mass <= {m:.3g} Msun "
-            f"stays on the main sequence for {_years(limit)}: {dev:.1f} sigma too young"),
-        extra=(upper,))
+            f"stays on the main sequence for {_years(limit)}: {dev:.1f} sigma too young"))
 
 
 # --- pms-too-old ---------------------------------------------------------------------------
 
 def evaluate_pms_too_old(batch: StarBatch, params: Params) -> Outcome:
     """Pre-main-sequence stars older than the contraction time of their mass."""
-    mass = batch.values["mass"]
-    log_t, slope = on_rows(np.flatnonzero(phase_is(batch, "PMS")), batch.size,
-                           evolution.log_pre_main_sequence_time_and_slope, mass,
-                           metallicity(batch))
-    applies = np.isfinite(log_t)
-    return _age_outcome(
-        batch, params, applies, log_t, _age_sigma(batch, params, slope), older=True,
-        describe_row=lambda age, limit, dev, m: (
+    return _timescale_outcome(
+        batch, params, phase_is(batch, "PMS"), evolution.log_pre_main_sequence_time_and_slope,
+        batch.values["mass"], older=True, describe_row=lambda age, limit, dev, m: (
             f"pre-main-sequence star of {m:.3g} Msun is {_years(age)} old, but it reaches "
-            f"the main sequence at {_years(limit)}: {dev:.1f} sigma"),
-        extra=(mass,))
+            f"the main sequence at {_years(limit)}: {dev:.1f} sigma"))
 
 
 # --- white-dwarf-too-young -----------------------------------------------------------------
