@@ -235,7 +235,7 @@ class BatchChecker:
 
 def _tally(rule: Rule, stars: StarBatch, outcome: Outcome) -> tuple[RuleTally, pa.Table | None]:
     """One rule's counts on a batch, and its flag records (None if it flagged no row)."""
-    available = stars.has_all(rule.needs)
+    available = stars.has_all(rule.row_needs)
     not_applicable = 0
     if outcome.applies is not None:
         not_applicable = int((available & ~outcome.applies).sum())

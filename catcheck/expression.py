@@ -255,13 +255,16 @@ class Expression:
     """A compiled rule expression.
 
     ``names`` are the quantities it references (``phase`` included when used); ``boolean``
-    tells a condition (``teff < 5800``) from a number (``teff / 1000``).
+    tells a condition (``teff < 5800``) from a number (``teff / 1000``); ``required`` are the
+    names used outside ``isnan(...)``.
     """
 
     text: str
     names: frozenset[str]
     boolean: bool
     _root: _Node = field(repr=False, compare=False)
+    #: the names used outside ``isnan(...)``: a row missing one of them cannot be judged
+    required: frozenset[str] = frozenset()
 
     def evaluate(self, env: Mapping[str, np.ndarray], *, size: int | None = None) -> np.ndarray:
         """Evaluate over all rows at once.
@@ -325,7 +328,8 @@ def compile_expression(text: str, allowed_names: Collection[str]) -> Expression:
         raise source.error(0, "the expression is nested too deeply") from None
     if root.kind == PHASE:
         raise source.error(0, _PHASE_HELP)
-    return Expression(text, frozenset(compiler.names), root.kind == CONDITION, root)
+    return Expression(text, frozenset(compiler.names), root.kind == CONDITION, root,
+                      frozenset(compiler.required))
 
 
 # --- parsing helpers ----------------------------------------------------------------------
@@ -430,6 +434,8 @@ class _Compiler:
         self.source = source
         self.allowed = allowed
         self.names: set[str] = set()
+        self.required: set[str] = set()  # names used outside isnan(...)
+        self.testing_nan = 0
 
     def compile(self, node: ast.expr) -> _Node:
         match node:
@@ -486,6 +492,8 @@ class _Compiler:
         if name != "phase" and name in QUANTITIES and not QUANTITIES[name].numeric:
             raise self.source.error(node, f"{name} is text; expressions use numbers and phase")
         self.names.add(name)
+        if not self.testing_nan:
+            self.required.add(name)
         return _Phase() if name == "phase" else _Quantity(name)
 
     def _unary(self, node: ast.UnaryOp) -> _Node:
@@ -592,7 +600,11 @@ class _Compiler:
         if len(node.args) != 1:
             raise self.source.error(node, f"{name}() takes exactly one argument")
         func, kind = FUNCTIONS[name]
-        return _apply(func, (self.expect(node.args[0], NUMBER),), kind)
+        self.testing_nan += name == "isnan"
+        try:
+            return _apply(func, (self.expect(node.args[0], NUMBER),), kind)
+        finally:
+            self.testing_nan -= name == "isnan"
 
 
 def _is_phase(node: ast.expr) -> bool:

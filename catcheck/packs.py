@@ -48,8 +48,15 @@ class Rule:
 
     @property
     def needs(self) -> tuple[str, ...]:
-        """The canonical quantities this rule reads."""
+        """The canonical quantities this rule reads (the profile must map them)."""
         return self.check.needs(self.params)
+
+    @property
+    def row_needs(self) -> tuple[str, ...]:
+        """The quantities a row must have for the rule to judge it; others are skipped."""
+        if self.check.row_needs is None:
+            return self.needs
+        return self.check.row_needs(self.params)
 
 
 def builtin_pack_dir() -> Path:
@@ -256,6 +263,8 @@ def _expression_check(entry: Mapping[str, Any], where: str) -> Check:
             raise RulePackError(f"{key} = {expression.text!r} is a number, not a condition",
                                 where=where, fix=f"compare it, e.g. {key} = \"teff < 5800\"")
     needed = tuple(sorted(when.names | require.names | message.names))
+    # a value tested with isnan() may be missing; so may one shown only in the message
+    judged = tuple(sorted(when.required | require.required))
 
     def evaluate(batch: StarBatch, params: Params) -> Outcome:
         env = batch.environment()
@@ -272,4 +281,5 @@ def _expression_check(entry: Mapping[str, Any], where: str) -> Check:
         example=str(entry.get("example", "(none given)")),
         references=_references(entry.get("references", []), where),
     )
-    return Check("expression", lambda params: needed, evaluate, doc, {}, uses_errors=False)
+    return Check("expression", lambda params: needed, evaluate, doc, {}, uses_errors=False,
+                 row_needs=lambda params: judged)

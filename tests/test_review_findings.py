@@ -113,3 +113,19 @@ def test_references_may_be_one_string(tmp_path) -> None:
 
 def test_factory_profile_still_loads() -> None:
     assert "[phases]" in PROFILE_TOML  # guards the fixtures these regressions build on
+
+
+def test_isnan_in_an_expression_can_fire(tmp_path) -> None:
+    pack = tmp_path / "p.toml"
+    pack.write_text('[[rule]]\nid = "needs-luminosity"\nsummary = "every star has an L"\n'
+                    'severity = "warning"\nrequire = "not isnan(luminosity)"\n'
+                    'message = "no luminosity for a star at {teff:.0f} K"\n')
+    frame = pd.DataFrame({"name": ["a", "b"], "T": [5000.0, 6000.0], "L": [np.nan, 0.3]})
+    profile = profile_from_dict({"id": "name", "quantities": {
+        "teff": {"column": "T", "unit": "K"},
+        "luminosity": {"column": "L", "unit": "dex(Lsun)"}}})
+    result = catcheck.check_frame(frame, profile, rules=[pack])
+    assert result.flags["row"].tolist() == [0]
+    assert result.flags.iloc[0]["message"] == "no luminosity for a star at 5000 K"
+    counts = result.summary["rules"][0]
+    assert (counts["checked"], counts["skipped"]) == (2, 0)

@@ -67,6 +67,8 @@ class Check:
     uses_errors: bool = True
     escalates: bool = False
     needs_group: bool = False
+    #: the quantities whose missing value skips a row (default: all of ``needs``)
+    row_needs: Callable[[Params], tuple[str, ...]] | None = None
     #: for group rules: the per-group statistics the check reads in pass 2, by name; the
     #: engine aggregates them over the whole catalogue in pass 1 (see catcheck.groups)
     group_variables: Mapping[str, GroupVariable] = field(default_factory=dict)
