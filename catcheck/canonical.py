@@ -42,6 +42,7 @@ class StarBatch:
     _has: dict[str | tuple[str, ...], np.ndarray] = field(default_factory=dict, repr=False)
     _log10: dict[str, np.ndarray] = field(default_factory=dict, repr=False)
     _log_errors: dict[str, np.ndarray] = field(default_factory=dict, repr=False)
+    _log_sigmas: dict[tuple[str, float], np.ndarray] = field(default_factory=dict, repr=False)
 
     def __len__(self) -> int:
         return self.size
@@ -106,15 +107,21 @@ class StarBatch:
         Linear errors propagate as ``sigma / (x ln 10)``; errors of dex columns are used
         as given.  Rows without a usable catalogue error get ``assumed_dex``.
         """
+        key = (quantity, assumed_dex)
+        if key in self._log_sigmas:
+            return self._log_sigmas[key]
         given = self._log_errors.get(quantity)
         if given is None and quantity in self.errors:
             with np.errstate(divide="ignore", invalid="ignore"):
                 given = self.errors[quantity] / (np.abs(self.values[quantity]) * LN10)
             self._log_errors[quantity] = given
         if given is None:
-            return np.broadcast_to(np.float64(assumed_dex), (self.size,))
-        missing = self.missing_error(quantity)
-        return np.where(missing, assumed_dex, given) if missing.any() else given
+            sigma = np.broadcast_to(np.float64(assumed_dex), (self.size,))
+        else:
+            missing = self.missing_error(quantity)
+            sigma = np.where(missing, assumed_dex, given) if missing.any() else given
+        self._log_sigmas[key] = sigma
+        return sigma
 
     def group_statistic(self, name: str) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
         """(member count, median, robust spread) of a group variable for each row's group."""
@@ -219,6 +226,7 @@ class GroupValues:
                 missing, from_group, own)
             stars._log10.pop(quantity, None)
             stars._log_errors.pop(quantity, None)
+            stars._log_sigmas = {k: v for k, v in stars._log_sigmas.items() if k[0] != quantity}
             if quantity in self.errors:
                 group_error = _by_code(self.errors[quantity], codes)
                 own_error = stars.errors.get(quantity)

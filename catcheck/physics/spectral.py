@@ -39,7 +39,7 @@ import re
 from collections.abc import Sequence
 from dataclasses import dataclass
 from enum import IntEnum
-from functools import cache
+from functools import cache, lru_cache
 from typing import NamedTuple
 
 import numpy as np
@@ -139,6 +139,7 @@ class MKType:
     uncertain: bool = False
 
 
+@lru_cache(maxsize=65536)
 def parse_mk(text: str | None) -> MKType:
     """Parse one MK spectral type string (see the module docstring for the notation).
 
@@ -146,6 +147,7 @@ def parse_mk(text: str | None) -> MKType:
     Roman numerals may be in either case.  A range of subtypes (``G2/3``, ``G8-K0``) gives
     their mean index; a range of classes (``IV-V``) the mean luminosity class.
     Returns kind ``UNPARSEABLE`` for strings not recognised and a subtype of 10 or more.
+    Results are cached: a catalogue repeats a few hundred distinct types batch after batch.
     """
     if text is None:
         return MKType(None, TypeKind.MISSING)
