@@ -10,13 +10,15 @@ _M_TRIM_THRESHOLD = -1
 _M_MMAP_THRESHOLD = -3
 
 
-def keep_freed_memory(mmap_threshold: int = 256 << 20, trim_threshold: int = 512 << 20) -> bool:
+def keep_freed_memory(mmap_threshold: int = 32 << 20, trim_threshold: int = 128 << 20) -> bool:
     """Ask glibc to reuse freed large blocks instead of returning them to the system.
 
     Every batch allocates numpy temporaries of a few MB; by default glibc serves each from
     a fresh mmap and unmaps it when freed, so every batch pays page faults again (about a
     quarter of a check's time here).  Raising the mmap and trim thresholds keeps those
-    blocks in the heap for reuse.  Returns False where this is not glibc (nothing done).
+    blocks in the heap for reuse: batch-sized blocks (below 32 MB) come from the heap, and
+    up to 128 MB of freed heap is kept, so peak memory grows little while the page faults
+    go.  Returns False where this is not glibc (nothing done).
     """
     name = ctypes.util.find_library("c")
     if not name:
