@@ -10,13 +10,12 @@ from typing import Any
 
 import pandas as pd
 import pyarrow as pa
-import pyarrow.parquet as pq
 
 from catcheck import __version__
 from catcheck.engine import Catalogue, RunStats, run_rules
 from catcheck.flags import FLAG_SCHEMA
 from catcheck.gate import Gate
-from catcheck.outputs import ReportDirectory
+from catcheck.outputs import ReportDirectory, read_flags
 from catcheck.packs import DEFAULT_PACKS, load_rules
 from catcheck.profile import Profile, load_profile
 from catcheck.reader import DEFAULT_BATCH_ROWS, ParquetCatalogue
@@ -35,7 +34,7 @@ class CheckResult:
     @property
     def flags(self) -> pd.DataFrame:
         """The flags table as a pandas DataFrame (columns as in DESIGN.md)."""
-        table = self._flags if isinstance(self._flags, pa.Table) else pq.read_table(self._flags)
+        table = self._flags if isinstance(self._flags, pa.Table) else read_flags(self._flags)
         return table.to_pandas()
 
     @property
@@ -118,23 +117,7 @@ def _run(catalogue: Catalogue, profile: PathLike | Profile, rules: Sequence[Path
         examples = {s.rule.id: s.examples for s in stats.rules}
         report.write_text("report.md", markdown_report(summary, examples))
         written = report.commit()
-    flags_path = written.get("flags.parquet")
-    if flags_path is None:
-        return CheckResult(summary, _read_flags_text(written, flags_format))
-    return CheckResult(summary, flags_path)
-
-
-def _read_flags_text(written: dict[str, Path], flags_format: str) -> pa.Table:
-    path = written[f"flags.{flags_format}"]
-    if flags_format == "csv":
-        import pyarrow.csv as pacsv
-
-        return pacsv.read_csv(path, convert_options=pacsv.ConvertOptions(
-            column_types=FLAG_SCHEMA)).cast(FLAG_SCHEMA)
-    frame = pd.read_json(path, lines=True, dtype=False)
-    if frame.empty:
-        return FLAG_SCHEMA.empty_table()
-    return pa.Table.from_pandas(frame, preserve_index=False).cast(FLAG_SCHEMA)
+    return CheckResult(summary, written[f"flags.{flags_format}"])  # read only when asked
 
 
 def _summary(catalogue: Catalogue, profile: Profile, packs: Sequence[PathLike],

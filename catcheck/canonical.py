@@ -69,10 +69,6 @@ class StarBatch:
             self._has[key] = present
         return self._has[key].copy()
 
-    def lacks_some_error(self, quantity: str) -> bool:
-        """True when the catalogue's 1-sigma of ``quantity`` is missing in some row."""
-        return quantity not in self.errors or bool(self.missing_error(quantity).any())
-
     def missing_error(self, quantity: str) -> np.ndarray:
         """Rows where the catalogue's 1-sigma of ``quantity`` is missing (computed once)."""
         if quantity not in self._missing_errors:

@@ -202,7 +202,7 @@ def _group_pass(rules: Sequence[Rule], profile: Profile,
 def _prepare(rule: Rule, profile: Profile) -> RuleStats:
     stats = RuleStats(rule)
     missing = [q for q in rule.needs if not profile.provides(q)]
-    if (rule.check.group_variables or rule.check.needs_group) and not profile.group_column:
+    if rule.check.group_variables and not profile.group_column:
         missing.append("group")
     if missing:
         stats.status = f"not-run: missing {', '.join(missing)}"
@@ -265,7 +265,7 @@ def _assumed_errors(needs: Sequence[str], stars: StarBatch, available: np.ndarra
         if not QUANTITIES[quantity].numeric:
             continue
         if quantity not in stars.errors or (
-                stars.lacks_some_error(quantity)  # cheap test first: most columns are full
+                stars.missing_error(quantity).any()  # cheap test first: most columns are full
                 and (stars.missing_error(quantity) & available).any()):
             assumed.append(quantity)
     return assumed

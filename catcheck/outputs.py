@@ -140,3 +140,15 @@ def _json_value(value: Any) -> Any:
     if isinstance(value, float) and value in (float("inf"), float("-inf")):
         return None
     return value
+
+
+def read_flags(path: Path) -> pa.Table:
+    """Read a flags file written by :class:`ReportDirectory`, in any of its formats."""
+    if path.suffix == ".parquet":
+        return pq.read_table(path)
+    if path.suffix == ".csv":
+        return pacsv.read_csv(path, convert_options=pacsv.ConvertOptions(
+            column_types=FLAG_SCHEMA)).cast(FLAG_SCHEMA)
+    with open(path, encoding="utf-8") as lines:
+        records = [json.loads(line) for line in lines if line.strip()]
+    return pa.Table.from_pylist(records, schema=FLAG_SCHEMA)

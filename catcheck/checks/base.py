@@ -66,7 +66,6 @@ class Check:
     defaults: Mapping[str, Any] = field(default_factory=dict)
     uses_errors: bool = True
     escalates: bool = False
-    needs_group: bool = False
     #: the quantities whose missing value skips a row (default: all of ``needs``)
     row_needs: Callable[[Params], tuple[str, ...]] | None = None
     #: for group rules: the per-group statistics the check reads in pass 2, by name; the
