@@ -113,6 +113,7 @@ class RunStats:
 
 
 FlagSink = Callable[[pa.Table], None]
+BatchObserver = Callable[[StarBatch], None]
 
 
 @dataclass
@@ -135,15 +136,18 @@ class BatchResult:
     tallies: list[RuleTally]
     flags: pa.Table | None = None
     rank: np.ndarray | None = None
+    stars: StarBatch | None = None
 
 
 def run_rules(catalogue: Catalogue, profile: Profile, rules: Sequence[Rule], sink: FlagSink,
               batch_rows: int, progress: Callable[[int], None] | None = None,
-              workers: int = 1) -> RunStats:
+              workers: int = 1, observers: Sequence[BatchObserver] = ()) -> RunStats:
     """Check every row of ``catalogue`` against ``rules``; flags go to ``sink`` in row order.
 
     With ``workers`` > 1, that many batches are checked at once in threads (numpy and
     Arrow release the GIL for their array work); results are still taken in order.
+    Each ``observers`` callable sees every checked batch once, in row order, in the calling
+    thread (for example to accumulate the density image of a diagram).
     """
     profile.validate_columns(catalogue.schema, catalogue.description)
     catalogue.check_columns(profile.columns)
@@ -164,10 +168,16 @@ def run_rules(catalogue: Catalogue, profile: Profile, rules: Sequence[Rule], sin
 
     def with_group_stats(stars: StarBatch) -> BatchResult:
         stars.group_stats = group_stats
-        return checker.check(stars)
+        result = checker.check(stars)
+        if observers:
+            result.stars = stars
+        return result
 
     for result in ordered_map(with_group_stats, prefetch(converted()), workers):
         stats.rows += result.rows
+        for observe in observers:
+            observe(result.stars)
+        result.stars = None
         for rule_stats, tally in zip(runnable, result.tallies, strict=True):
             rule_stats.add(tally, result.flags)
         if result.flags is not None:
