@@ -11,6 +11,7 @@ only counts and a few examples per rule stay behind.
 
 from __future__ import annotations
 
+from collections import Counter
 from collections.abc import Callable, Iterator, Sequence
 from dataclasses import dataclass, field
 from typing import Any, Protocol
@@ -29,9 +30,9 @@ from catcheck.canonical import (
 from catcheck.checks.base import Outcome
 from catcheck.checks.physical_range import RangeSchema
 from catcheck.flags import flag_records
-from catcheck.groups import GroupAccumulator, GroupSummary
+from catcheck.groups import GroupAccumulator, GroupSummary, GroupVariable
 from catcheck.packs import SEVERITY_RANK, Rule
-from catcheck.prefetch import ordered_map, prefetch
+from catcheck.prefetch import can_fork, forked_map, ordered_map, prefetch
 from catcheck.profile import Profile
 from catcheck.quantities import QUANTITIES
 
@@ -111,9 +112,20 @@ class RunStats:
     flags_by_severity: dict[str, int] = field(default_factory=dict)
     unmapped_phase_labels: dict[str, int] = field(default_factory=dict)
 
+    def add_batch(self, result: BatchResult, sink: FlagSink) -> None:
+        """Count one checked batch (batches in row order) and hand its flags to ``sink``."""
+        self.rows += result.rows
+        runnable = [s for s in self.rules if s.status == "ran"]
+        for rule_stats, tally in zip(runnable, result.tallies, strict=True):
+            rule_stats.add(tally, result.flags)
+        if result.flags is not None:
+            _count_rows(self, result.flags, result.rank)
+            sink(result.flags)
+
 
 FlagSink = Callable[[pa.Table], None]
-BatchObserver = Callable[[StarBatch], None]
+#: sees a checked batch and its flags (None when it has none)
+BatchObserver = Callable[[StarBatch, pa.Table | None], None]
 
 
 @dataclass
@@ -146,18 +158,11 @@ def run_rules(catalogue: Catalogue, profile: Profile, rules: Sequence[Rule], sin
 
     With ``workers`` > 1, that many batches are checked at once in threads (numpy and
     Arrow release the GIL for their array work); results are still taken in order.
-    Each ``observers`` callable sees every checked batch once, in row order, in the calling
-    thread (for example to accumulate the density image of a diagram).
+    Each ``observers`` callable sees every checked batch once with its flags, in row
+    order, in the calling thread (for example to accumulate the density image of a
+    diagram and mark the flagged stars on it).
     """
-    profile.validate_columns(catalogue.schema, catalogue.description)
-    catalogue.check_columns(profile.columns)
-    stats = RunStats(rules=[_prepare(rule, profile) for rule in rules])
-    runnable = [s for s in stats.rules if s.status == "ran"]
-    checker = BatchChecker([s.rule for s in runnable])
-    labels = Labels(PhaseLabels(profile.phases))
-    labels.group_values = load_group_values(profile, labels.groups)
-    stats.rows_by_severity = dict.fromkeys(SEVERITY_RANK, 0)
-    stats.flags_by_severity = dict.fromkeys(SEVERITY_RANK, 0)
+    stats, checker, labels = start_run(catalogue, profile, rules)
 
     def converted(reading: Profile = profile) -> Iterator[StarBatch]:
         for first_row, batch in catalogue.batches(reading.columns, batch_rows):
@@ -173,20 +178,92 @@ def run_rules(catalogue: Catalogue, profile: Profile, rules: Sequence[Rule], sin
             result.stars = stars
         return result
 
-    for result in ordered_map(with_group_stats, prefetch(converted()), workers):
-        stats.rows += result.rows
+    pieces = _pieces(catalogue, workers, observers)
+    if pieces:
+        results = _check_pieces(pieces, profile, batch_rows, labels, with_group_stats,
+                                workers)
+    else:
+        results = ordered_map(with_group_stats, prefetch(converted()), workers)
+    for result in results:
         for observe in observers:
-            observe(result.stars)
+            observe(result.stars, result.flags)
         result.stars = None
-        for rule_stats, tally in zip(runnable, result.tallies, strict=True):
-            rule_stats.add(tally, result.flags)
-        if result.flags is not None:
-            _count_rows(stats, result.flags, result.rank)
-            sink(result.flags)
+        stats.add_batch(result, sink)
         if progress:
             progress(result.rows)
     stats.unmapped_phase_labels = dict(sorted(labels.phases.unmapped.items()))
     return stats
+
+
+def _pieces(catalogue: Catalogue, workers: int, observers: Sequence[BatchObserver]
+            ) -> list[Any] | None:
+    """The catalogue's independent pieces when worth spreading over processes, else None.
+
+    Processes need a catalogue that can be cut (Parquet row groups), more than one piece,
+    a platform that forks, and no observers (they see batches in this process).
+    """
+    if workers <= 1 or observers or not can_fork():
+        return None
+    cut = getattr(catalogue, "pieces", None)
+    pieces = cut() if cut else []
+    return pieces if len(pieces) > 1 else None
+
+
+def _check_pieces(pieces: Sequence[Any], profile: Profile, batch_rows: int, labels: Labels,
+                  check: Callable[[StarBatch], BatchResult], workers: int
+                  ) -> Iterator[BatchResult]:
+    """Check whole pieces in forked worker processes; batch results in row order.
+
+    Each worker reads its piece itself (no batch crosses a process boundary), so only
+    flags and counts come back.  Unmapped phase labels are counted where the batch is
+    read and added up here.
+    """
+    def check_piece(index: int) -> tuple[list[BatchResult], Counter[str]]:
+        labels.phases.unmapped.clear()  # this process's count for this piece only
+        results = [check(canonical_batch(profile, batch, first_row, labels))
+                   for first_row, batch in pieces[index].batches(profile.columns,
+                                                                 batch_rows)]
+        return results, Counter(labels.phases.unmapped)
+
+    unmapped = labels.phases.unmapped
+    for results, piece_unmapped in forked_map(check_piece, len(pieces), workers):
+        unmapped.update(piece_unmapped)
+        yield from results
+
+
+def start_run(catalogue: Catalogue, profile: Profile, rules: Sequence[Rule]
+              ) -> tuple[RunStats, BatchChecker, Labels]:
+    """Everything a run needs before its first batch (any engine).
+
+    Checks the profile against the catalogue's columns; returns empty statistics (rules
+    the profile cannot feed marked not-run), the checker of the rules that can run, and
+    the run's label maps with the ``[groups]`` table's values loaded.
+    """
+    profile.validate_columns(catalogue.schema, catalogue.description)
+    catalogue.check_columns(profile.columns)
+    stats = RunStats(rules=[_prepare(rule, profile) for rule in rules])
+    stats.rows_by_severity = dict.fromkeys(SEVERITY_RANK, 0)
+    stats.flags_by_severity = dict.fromkeys(SEVERITY_RANK, 0)
+    checker = BatchChecker([s.rule for s in stats.rules if s.status == "ran"])
+    labels = Labels(PhaseLabels(profile.phases))
+    labels.group_values = load_group_values(profile, labels.groups)
+    return stats, checker, labels
+
+
+def group_plan(rules: Sequence[Rule], profile: Profile
+               ) -> tuple[dict[str, GroupVariable], Profile] | None:
+    """What pass 1 aggregates and reads: the group variables of ``rules`` and the profile
+    restricted to the quantities they need; None when no rule needs a group pass (or the
+    profile has no group column).
+    """
+    group_rules = [rule for rule in rules if rule.check.group_variables]
+    if not group_rules or not profile.group_column:
+        return None
+    variables = {name: variable for rule in group_rules
+                 for name, variable in rule.check.group_variables.items()}
+    needed = {quantity for rule in group_rules for quantity in rule.needs}
+    needed |= {"initial_mass", "feh"}  # optional inputs of the lifetime relations
+    return variables, profile.restricted_to(needed)
 
 
 def _group_pass(rules: Sequence[Rule], profile: Profile,
@@ -196,15 +273,12 @@ def _group_pass(rules: Sequence[Rule], profile: Profile,
 
     Only the columns of the quantities the group rules need are read.
     """
-    group_rules = [rule for rule in rules if rule.check.group_variables]
-    if not group_rules or not profile.group_column:
+    plan = group_plan(rules, profile)
+    if plan is None:
         return {}
-    variables = {name: variable for rule in group_rules
-                 for name, variable in rule.check.group_variables.items()}
-    needed = {quantity for rule in group_rules for quantity in rule.needs}
-    needed |= {"initial_mass", "feh"}  # optional inputs of the lifetime relations
+    variables, reading = plan
     accumulator = GroupAccumulator(variables)
-    for stars in prefetch(batches(profile.restricted_to(needed))):
+    for stars in prefetch(batches(reading)):
         accumulator.add(stars)
     return accumulator.finish(len(labels.groups.code_of))
 

@@ -1,17 +1,20 @@
-"""Run a producer (reading and converting batches) ahead of its consumer in a thread.
+"""Concurrency, bounded: a reading thread ahead of the checks, and ordered parallel maps.
 
 Parquet decoding and numpy arithmetic release the GIL, so reading batch n+1 while the
 rules run on batch n uses the second core.  The queue is bounded, so memory holds at most
-``depth`` batches beyond the one being checked.
+``depth`` batches beyond the one being checked.  For ``--workers``, :func:`forked_map`
+spreads whole row groups over processes (no GIL), :func:`ordered_map` batches over threads
+where a catalogue cannot be cut into pieces.
 """
 
 from __future__ import annotations
 
+import multiprocessing
 import queue
 import threading
 from collections import deque
 from collections.abc import Callable, Iterable, Iterator
-from concurrent.futures import Future, ThreadPoolExecutor
+from concurrent.futures import Future, ProcessPoolExecutor, ThreadPoolExecutor
 from typing import TypeVar
 
 T = TypeVar("T")
@@ -92,3 +95,45 @@ def ordered_map(function: Callable[[T], R], items: Iterable[T], workers: int = 1
         finally:
             for future in pending:
                 future.cancel()
+
+
+_FORKED_FUNCTION: Callable[[int], object] | None = None
+
+
+def can_fork() -> bool:
+    """True where worker processes can be forked (Linux, and Unix generally)."""
+    return "fork" in multiprocessing.get_all_start_methods()
+
+
+def forked_map(function: Callable[[int], R], count: int, workers: int) -> Iterator[R]:
+    """``function(0), ..., function(count - 1)`` in ``workers`` forked processes, in order.
+
+    The processes are forked when this starts, so ``function`` and everything it reads
+    (profile, rules, group statistics) are inherited, never pickled: only the index goes
+    to a worker and only the (picklable) result comes back.  At most ``2 * workers`` calls
+    are in flight, so memory stays bounded however large ``count`` is.  Call it with no
+    other thread of ours running: a fork copies only the calling thread.
+    """
+    global _FORKED_FUNCTION
+    _FORKED_FUNCTION = function
+    context = multiprocessing.get_context("fork")
+    pending: deque[Future[R]] = deque()
+    try:
+        with ProcessPoolExecutor(max_workers=workers, mp_context=context) as pool:
+            try:
+                for index in range(count):
+                    pending.append(pool.submit(_call_forked, index))
+                    if len(pending) >= 2 * workers:
+                        yield pending.popleft().result()
+                while pending:
+                    yield pending.popleft().result()
+            finally:
+                for future in pending:
+                    future.cancel()
+    finally:
+        _FORKED_FUNCTION = None
+
+
+def _call_forked(index: int) -> object:
+    assert _FORKED_FUNCTION is not None, "forked_map sets the function before forking"
+    return _FORKED_FUNCTION(index)

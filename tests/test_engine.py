@@ -92,6 +92,23 @@ def test_results_do_not_depend_on_batch_size() -> None:
         assert reference.summary["flagged_rows"] == other.summary["flagged_rows"]
 
 
+@pytest.mark.parametrize("workers", [2, 3])
+def test_worker_processes_give_the_same_report(tmp_path, workers: int) -> None:
+    """Row groups checked in forked processes: same flags, counts and unmapped labels."""
+    frame = sun_like(4000, seed=5)
+    frame.loc[::89, "logL"] += 0.7
+    frame.loc[::301, "state"] = "weird"
+    path = write_catalogue(tmp_path, frame, row_group_size=700)  # 6 pieces
+    profile = tmp_path / "profile.toml"
+    one = catcheck.check(path, profile, rules=CORE, batch_rows=1000)
+    many = catcheck.check(path, profile, rules=CORE, batch_rows=1000, workers=workers)
+    assert len(one.flags) > 40
+    pd.testing.assert_frame_equal(one.flags, many.flags)
+    for key in ("rules", "flagged_rows", "rows_by_severity", "unmapped_phase_labels"):
+        assert one.summary[key] == many.summary[key]
+    assert one.summary["unmapped_phase_labels"] == {"weird": 14}
+
+
 def test_flags_sorted_by_row_then_rule_order() -> None:
     frame = sun_like(6)
     frame.loc[4, "logL"] += 1
