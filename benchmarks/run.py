@@ -5,14 +5,18 @@ times, each case in its own fresh Python process so that peak memory (RSS) is it
 
 * ``scan``: a plain pyarrow read of the columns the profile needs, batch by batch;
 * ``core``: ``catcheck.check`` with the core pack, writing a full report;
-* ``all``: the default packs (core, evolution, clusters: includes the two-pass group
-  check), one worker;
-* ``all-w2``: the same with ``--workers 2``.
+* ``all``: the default packs (includes the two-pass cluster check), one worker;
+* ``all-w2``: the same with ``--workers 2`` (worker processes);
+* ``core-w2``: the core pack with ``--workers 2``;
+* ``rows-out``: the default packs, one worker, also writing the annotated catalogue and
+  the clean/flagged split (``--annotate --split``).
 
 It prints the seconds, the ratio of each case to the scan of the same size in the same
-benchmark session, and the peak RSS.  Usage (after ``pip install .``)::
+benchmark session, and the peak RSS: the case's process plus its worker processes,
+sampled every 20 ms and summed (pages a forked worker shares with its parent are counted
+twice, so this is an upper bound).  Usage (after ``pip install .``)::
 
-    python benchmarks/run.py --rows 2000000 10000000 [--cases scan core all] [--data DIR]
+    python benchmarks/run.py --rows 1000000 10000000 [--cases scan core all] [--data DIR]
 """
 
 from __future__ import annotations
@@ -20,17 +24,59 @@ from __future__ import annotations
 import argparse
 import importlib
 import json
-import resource
+import os
 import subprocess
 import sys
 import tempfile
+import threading
 import time
 from pathlib import Path
 
 
-def peak_rss_mb() -> float:
-    """This process's peak resident set size in MB (Linux reports kB)."""
-    return resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0
+class PeakMemory:
+    """Samples the RSS of this process and its child processes until stopped."""
+
+    def __init__(self, interval: float = 0.02) -> None:
+        self.interval = interval
+        self.peak_kb = 0
+        self._stop = threading.Event()
+        self._thread = threading.Thread(target=self._run, daemon=True)
+
+    def __enter__(self) -> PeakMemory:
+        self._thread.start()
+        return self
+
+    def __exit__(self, *exc: object) -> None:
+        self._stop.set()
+        self._thread.join()
+        self._sample()
+
+    def _run(self) -> None:
+        while not self._stop.wait(self.interval):
+            self._sample()
+
+    def _sample(self) -> None:
+        pids = [os.getpid(), *_children(os.getpid())]
+        self.peak_kb = max(self.peak_kb, sum(_rss_kb(pid) for pid in pids))
+
+
+def _children(pid: int) -> list[int]:
+    try:
+        with open(f"/proc/{pid}/task/{pid}/children") as listing:
+            return [int(child) for child in listing.read().split()]
+    except OSError:
+        return []
+
+
+def _rss_kb(pid: int) -> int:
+    try:
+        with open(f"/proc/{pid}/status") as status:
+            for line in status:
+                if line.startswith("VmRSS:"):
+                    return int(line.split()[1])
+    except OSError:
+        pass
+    return 0
 
 
 def case_scan(catalogue: Path, profile: Path, batch_rows: int) -> None:
@@ -46,32 +92,37 @@ def case_scan(catalogue: Path, profile: Path, batch_rows: int) -> None:
     assert rows > 0
 
 
-CASES = {
-    "core": (["core"], 1),
-    "all": (["core", "evolution", "clusters"], 1),
-    "all-w2": (["core", "evolution", "clusters"], 2),
+CASES = {  # packs (None: catcheck's default packs), workers, extra keywords
+    "core": (["core"], 1, {}),
+    "all": (None, 1, {}),
+    "all-w2": (None, 2, {}),
+    "core-w2": (["core"], 2, {}),
+    "rows-out": (None, 1, {"annotate": True, "split": True}),
 }
 
 
 def case_check(catalogue: Path, profile: Path, batch_rows: int, case: str, out: Path) -> None:
     import catcheck
+    from catcheck.packs import DEFAULT_PACKS
 
-    packs, workers = CASES[case]
-    catcheck.check(catalogue, profile, packs, out=out, fail_on="none", batch_rows=batch_rows,
-                   workers=workers)
+    packs, workers, extra = CASES[case]
+    catcheck.check(catalogue, profile, packs or DEFAULT_PACKS, out=out, fail_on="none",
+                   batch_rows=batch_rows, workers=workers, **extra)
 
 
 def child(args: argparse.Namespace) -> None:
     # imports are not part of the timed work; every case runs tuned as the CLI runs
     importlib.import_module("pyarrow.parquet")
-    importlib.import_module("catcheck.checks")
+    importlib.import_module("catcheck.api")
     importlib.import_module("catcheck.tuning").keep_freed_memory()
-    started = time.perf_counter()
-    if args.child == "scan":
-        case_scan(args.catalogue, args.profile, args.batch_rows)
-    else:
-        case_check(args.catalogue, args.profile, args.batch_rows, args.child, args.out)
-    print(json.dumps({"seconds": time.perf_counter() - started, "peak_rss_mb": peak_rss_mb()}))
+    with PeakMemory() as memory:
+        started = time.perf_counter()
+        if args.child == "scan":
+            case_scan(args.catalogue, args.profile, args.batch_rows)
+        else:
+            case_check(args.catalogue, args.profile, args.batch_rows, args.child, args.out)
+        seconds = time.perf_counter() - started
+    print(json.dumps({"seconds": seconds, "peak_rss_mb": memory.peak_kb / 1024.0}))
 
 
 def run_case(case: str, catalogue: Path, profile: Path, args: argparse.Namespace,
@@ -87,8 +138,8 @@ def run_case(case: str, catalogue: Path, profile: Path, args: argparse.Namespace
 
 def main() -> None:
     parser = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
-    parser.add_argument("--rows", type=int, nargs="+", default=[2_000_000])
-    parser.add_argument("--cases", nargs="+", default=["scan", "core", "all", "all-w2"],
+    parser.add_argument("--rows", type=int, nargs="+", default=[1_000_000, 10_000_000])
+    parser.add_argument("--cases", nargs="+", default=["scan", *CASES],
                         choices=["scan", *CASES])
     parser.add_argument("--batch-rows", type=int, default=262_144)
     parser.add_argument("--repeat", type=int, default=2, help="best of N runs per case")
@@ -107,7 +158,7 @@ def main() -> None:
 
     data = args.data or Path(tempfile.mkdtemp(prefix="catcheck-bench-"))
     print(f"batch rows: {args.batch_rows:,}; best of {args.repeat}; peak RSS per case "
-          "(each case in its own process)")
+          "(each case in its own process, worker processes added)")
     print(f"{'rows':>12} {'case':<8} {'seconds':>9} {'ratio':>7} {'peak RSS MB':>12}")
     for rows in args.rows:
         folder = data / f"demo-{rows}"

@@ -13,7 +13,10 @@ some values are missing, and 2.7% of the rows carry one planted fault each (sing
 physics, evolution and cluster membership: :data:`FAULT_KINDS`), listed in a truth table.
 
 Public API: :func:`write_demo`, :func:`tally_faults`, :data:`FAULT_KINDS`,
-:class:`DemoFiles`.  No printing, no command line: the CLI renders.
+:class:`DemoFiles`, and :func:`write_next_release` (the survey's next release: some
+planted faults fixed, new ones planted, rows removed, added and reordered, with the truth
+of what changed, for release-gating demos and tests).  No printing, no command line: the
+CLI renders.
 
 Determinism: every random draw comes from ``numpy.random.SeedSequence(seed)`` children,
 one for the cluster table and one per chunk of ``CHUNK_ROWS`` rows, so the same
@@ -27,7 +30,7 @@ import os
 import uuid
 from collections.abc import Callable, Iterator
 from contextlib import contextmanager
-from dataclasses import dataclass
+from dataclasses import dataclass, replace
 from pathlib import Path
 
 import numpy as np
@@ -201,6 +204,8 @@ AGE_FAULT_FACTOR = 5.0
 #: 3 sigma of a 0.1 dex age error).  From ~4 Msun the age is too young, by > 3 sigma, for
 #: any progenitor the giant could have had, at every [Fe/H] and mass error of the survey.
 GIANT_TOO_YOUNG_MIN_MASS = 4.0
+#: radius_inflated multiplies a radius (and its error) by this factor.
+RADIUS_FAULT_FACTOR = 3.0
 #: wd_too_young: the age (Myr) given to a white dwarf, younger than any white dwarf.
 WD_TOO_YOUNG_MYR = 10.0
 #: The giants (log g at most, Teff below) that ms_label_on_giant relabels as dwarfs, and
@@ -265,8 +270,8 @@ def _plant_luminosity_offset(chunk: _Chunk, idx: Rows, rng: Generator) -> None:
 
 
 def _plant_radius_inflated(chunk: _Chunk, idx: Rows, rng: Generator) -> None:
-    chunk.cols[_C.radius][idx] *= 3.0
-    chunk.cols[_C.radius_err][idx] *= 3.0
+    chunk.cols[_C.radius][idx] *= RADIUS_FAULT_FACTOR
+    chunk.cols[_C.radius_err][idx] *= RADIUS_FAULT_FACTOR
 
 
 def _plant_impossible_teff(chunk: _Chunk, idx: Rows, rng: Generator) -> None:
@@ -568,6 +573,242 @@ def profile_toml() -> str:
 
 
 # =========================================================================================
+# The next release: faults fixed and planted, rows removed, added and reordered
+# =========================================================================================
+
+#: Planted faults a later release undoes exactly from the catalogue alone: the radius and
+#: its error divided by RADIUS_FAULT_FACTOR again, or the age set back to the cluster's
+#: (the age every unfaulted member of the cluster carries).  Undone, the row is its
+#: unfaulted self again.
+FIXABLE_FAULTS = ("radius_inflated", "age_beyond_universe", "ms_too_old", "giant_too_young",
+                  "wd_too_young")
+#: Faults a later release plants, each built to trip exactly one rule: kind -> rule id.
+#: A spectral type is read by ``spectral-type-teff`` alone.  A parallax is read by the
+#: cluster parallax rule and ``parallax-range`` (twice a parallax of a star beyond 290 pc
+#: stays far below its 800 mas); ``parallax-distance`` needs a distance the demo lacks.
+#: [Fe/H] also enters the lifetime relations and the hydrogen-burning limit, so the
+#: metallicity faults go to dwarfs of NEXT_FEH_FAULT_MASS, which live longer than the
+#: Universe and lie far above that limit at every [Fe/H] the fault can give.
+NEXT_RELEASE_FAULTS: dict[str, str] = {
+    "spectral_type_mismatch": "spectral-type-teff",
+    "parallax_outlier": "cluster-parallax-outlier",
+    "metallicity_outlier": "cluster-metallicity-outlier",
+}
+#: spectral_type_mismatch gives a star with Teff in this range (K) the dwarf type of a Teff
+#: SPECTRAL_FAULT_FACTOR times hotter (below SPECTRAL_FAULT_PIVOT_K) or cooler (above):
+#: 0.48 dex off, beyond 19 combined sigma on the dwarf scale.
+SPECTRAL_FAULT_TEFF_K = (3000.0, 30000.0)
+SPECTRAL_FAULT_PIVOT_K = 10000.0
+SPECTRAL_FAULT_FACTOR = 3.0
+#: catalogued masses (Msun) of the dwarfs that may receive a metallicity fault
+NEXT_FEH_FAULT_MASS = (0.3, 0.7)
+#: Shares of the first release the next one changes: clusters removed whole, fixable
+#: planted faults fixed, rows added (as whole new clusters), and rows given each new
+#: fault kind (at least one each, where a row can carry it).
+NEXT_REMOVED_CLUSTER_FRACTION = 0.1
+NEXT_FIXED_FRACTION = 0.5
+NEXT_ADDED_ROW_FRACTION = 0.1
+NEXT_FAULT_FRACTION = 0.002
+CHANGES_SCHEMA = pa.schema([
+    pa.field("id", pa.string()), pa.field("change", pa.string()),
+    pa.field("fault", pa.string()), pa.field("rule", pa.string()),
+])
+
+
+@dataclass(frozen=True)
+class NextRelease:
+    """What :func:`write_next_release` wrote, and the truth of what changed.
+
+    ``changes`` has one row per changed id (columns of :data:`CHANGES_SCHEMA`): ``change``
+    is ``removed`` (the row left the catalogue; ``fault`` names its planted fault, if it
+    had one), ``added`` (a clean row of a new cluster), ``fixed`` (``fault`` undone) or
+    ``planted`` (a new ``fault``, built to trip ``rule``).  Rows not listed are unchanged,
+    though at another position.
+    """
+
+    files: DemoFiles
+    changes: pd.DataFrame
+
+
+def write_next_release(first_dir: Path, out_dir: Path, seed: int = 2) -> NextRelease:
+    """Write the next release of the demo catalogue in ``first_dir`` into ``out_dir``.
+
+    The next release removes NEXT_REMOVED_CLUSTER_FRACTION of the clusters whole, fixes
+    NEXT_FIXED_FRACTION of the planted faults that can be undone (:data:`FIXABLE_FAULTS`),
+    plants faults of :data:`NEXT_RELEASE_FAULTS` in rows without one, adds whole new
+    clusters of clean stars (NEXT_ADDED_ROW_FRACTION of the rows) and shuffles the rows.
+    Clusters leave and arrive whole and the fixed and new faults touch one row each, so no
+    other row's cluster statistics move (up to the row sample of clusters above
+    :data:`catcheck.groups.SAMPLE_SIZE` members, which follows row numbers).
+
+    Writes ``catalogue.parquet``, ``profile.toml``, ``truth.parquet`` (the faults the next
+    release holds, at their new rows) and ``changes.parquet`` (:class:`NextRelease`), each
+    atomically.  Reads the first release whole: meant for demo sizes.  The same inputs and
+    ``seed`` give the same bytes.
+    """
+    seed = _integer(seed, "seed")
+    if seed < 0:
+        raise ValueError(f"seed must be a non-negative integer; got {seed}")
+    first_dir, out_dir = Path(first_dir), Path(out_dir)
+    table = pq.read_table(first_dir / "catalogue.parquet").cast(SCHEMA)
+    truth = pq.read_table(first_dir / "truth.parquet")
+    rng = np.random.default_rng(np.random.SeedSequence(seed, spawn_key=(2,)))
+    fault = np.full(table.num_rows, None, dtype=object)
+    fault[truth["row"].to_numpy()] = truth["fault"].to_numpy(zero_copy_only=False)
+
+    cluster = table[_C.cluster].to_numpy(zero_copy_only=False)
+    names = np.unique(cluster)
+    removed_names = rng.choice(names, size=min(len(names) - 1, max(
+        1, round(NEXT_REMOVED_CLUSTER_FRACTION * len(names)))), replace=False)
+    removed = np.isin(cluster, removed_names)
+    changes = [_changes(table[_C.id].filter(pa.array(removed)), "removed", fault[removed])]
+    table, fault = table.filter(pa.array(~removed)), fault[~removed]
+
+    fixed = _fixed_rows(rng, fault)
+    table = _undo_faults(table, fault, fixed)
+    changes.append(_changes(table[_C.id].take(pa.array(fixed)), "fixed", fault[fixed]))
+    free = pd.isna(fault)  # rows with no fault, before the fixed ones join them
+    fault[fixed] = None
+
+    table, planted = _plant_next_faults(rng, table, free)
+    for kind, rows in planted.items():
+        changes.append(_changes(table[_C.id].take(pa.array(rows)), "planted",
+                                np.full(rows.size, kind, dtype=object),
+                                NEXT_RELEASE_FAULTS[kind]))
+        fault[rows] = kind
+
+    added = _new_clusters(rng, table, max(1, round(NEXT_ADDED_ROW_FRACTION * table.num_rows)))
+    changes.append(_changes(added[_C.id], "added", np.full(added.num_rows, None)))
+    table = pa.concat_tables([table, added])
+    fault = np.concatenate([fault, np.full(added.num_rows, None, dtype=object)])
+
+    order = rng.permutation(table.num_rows)
+    table, fault = table.take(pa.array(order)), fault[order]
+    has_fault = np.flatnonzero(~pd.isna(fault))
+    new_truth = pa.Table.from_arrays(
+        [pa.array(has_fault.astype(np.int64)), table[_C.id].take(pa.array(has_fault)),
+         pa.array(fault[has_fault], pa.string())], schema=TRUTH_SCHEMA)
+    change_table = pa.concat_tables(changes).sort_by([("change", "ascending"),
+                                                      ("id", "ascending")])
+
+    out_dir.mkdir(parents=True, exist_ok=True)
+    files = DemoFiles(out_dir / "catalogue.parquet", out_dir / "profile.toml",
+                      out_dir / "truth.parquet")
+    with _atomic_path(files.catalogue) as tmp:
+        pq.write_table(table, tmp, row_group_size=CHUNK_ROWS)
+    with _atomic_path(files.truth) as tmp:
+        pq.write_table(new_truth, tmp)
+    with _atomic_path(out_dir / "changes.parquet") as tmp:
+        pq.write_table(change_table, tmp)
+    with _atomic_path(files.profile) as tmp:
+        Path(tmp).write_text(profile_toml(), encoding="utf-8")
+    return NextRelease(files, change_table.to_pandas())
+
+
+def _changes(ids: pa.Array | pa.ChunkedArray, change: str, faults: np.ndarray,
+             rule: str | None = None) -> pa.Table:
+    n = len(ids)
+    return pa.Table.from_arrays(
+        [pa.chunked_array([ids]) if isinstance(ids, pa.Array) else ids,
+         pa.array([change] * n, pa.string()), pa.array(faults, pa.string()),
+         pa.array([rule] * n, pa.string())], schema=CHANGES_SCHEMA)
+
+
+def _fixed_rows(rng: Generator, fault: NDArray[np.object_]) -> Rows:
+    """NEXT_FIXED_FRACTION of the rows whose fault can be undone (at least one), sorted."""
+    fixable = np.flatnonzero(np.isin(fault, FIXABLE_FAULTS))
+    count = min(fixable.size, max(1, round(NEXT_FIXED_FRACTION * fixable.size)))
+    return np.sort(rng.choice(fixable, size=count, replace=False))
+
+
+def _undo_faults(table: pa.Table, fault: NDArray[np.object_], rows: Rows) -> pa.Table:
+    """``table`` with the faults of ``rows`` undone (see :data:`FIXABLE_FAULTS`)."""
+    radius = table[_C.radius].to_numpy().copy()
+    radius_err = table[_C.radius_err].to_numpy().copy()
+    age = table[_C.age].to_numpy().copy()
+    inflated = rows[fault[rows] == "radius_inflated"]
+    radius[inflated] /= RADIUS_FAULT_FACTOR
+    radius_err[inflated] /= RADIUS_FAULT_FACTOR
+    aged = rows[fault[rows] != "radius_inflated"]
+    age[aged] = _cluster_values(table, age, pd.isna(fault))[aged]
+    for name, values in ((_C.radius, radius), (_C.radius_err, radius_err), (_C.age, age)):
+        table = table.set_column(table.schema.get_field_index(name), name, pa.array(values))
+    return table
+
+
+def _cluster_values(table: pa.Table, values: FloatArray, clean: Mask) -> FloatArray:
+    """Per row, the median of ``values`` over the clean members of the row's cluster
+    (for the catalogued age, the value they all share)."""
+    codes = table[_C.cluster].to_numpy(zero_copy_only=False)
+    names, cluster = np.unique(codes, return_inverse=True)
+    frame = pd.DataFrame({"cluster": cluster[clean], "value": values[clean]})
+    medians = frame.groupby("cluster")["value"].median().reindex(range(len(names)))
+    return medians.to_numpy()[cluster]
+
+
+def _plant_next_faults(rng: Generator, table: pa.Table, free: Mask
+                       ) -> tuple[pa.Table, dict[str, Rows]]:
+    """Plant NEXT_RELEASE_FAULTS in ``free`` rows (rows without a fault); returns the table
+    and the rows of each kind.  A cluster's centre is the median of its free rows."""
+    cols = {name: table[name].to_numpy().copy() for name in _FLOAT_COLUMNS}
+    stage_of = {label: int(stage) for stage, label in LABELS.items()}
+    labels = table[_C.evol_class].to_pandas()
+    label = labels.map(stage_of).fillna(int(Stage.REMNANT)).to_numpy(dtype=np.int8)
+    cluster = np.unique(table[_C.cluster].to_numpy(zero_copy_only=False),
+                        return_inverse=True)[1]
+    chunk = _Chunk(cols, label, labels.notna().to_numpy(), cluster,
+                   _cluster_values(table, cols[_C.parallax], free),
+                   _cluster_values(table, cols[_C.feh], free))
+    sp_type = table[_C.sp_type].to_numpy(zero_copy_only=False).copy()
+    teff = cols[_C.teff]
+    lo, hi = SPECTRAL_FAULT_TEFF_K
+    m_lo, m_hi = NEXT_FEH_FAULT_MASS
+    with np.errstate(invalid="ignore"):
+        candidates = {
+            "spectral_type_mismatch": (teff >= lo) & (teff <= hi),
+            "parallax_outlier": _FAULTS["parallax_outlier"].candidates(chunk),
+            "metallicity_outlier": _FAULTS["metallicity_outlier"].candidates(chunk)
+            & chunk.labelled_as(Stage.MS) & (cols[_C.mass] >= m_lo) & (cols[_C.mass] <= m_hi),
+        }
+    count = max(1, round(NEXT_FAULT_FRACTION * table.num_rows))
+    taken = ~free
+    planted: dict[str, Rows] = {}
+    for kind, can in candidates.items():
+        options = np.flatnonzero(can & ~taken)
+        idx = np.sort(rng.choice(options, size=min(count, options.size), replace=False))
+        if kind == "spectral_type_mismatch":
+            shown = np.where(teff[idx] < SPECTRAL_FAULT_PIVOT_K,
+                             teff[idx] * SPECTRAL_FAULT_FACTOR, teff[idx] / SPECTRAL_FAULT_FACTOR)
+            sp_type[idx] = pop.mk_spectral_type(shown, np.full(idx.size, "V", dtype=object))
+        else:
+            _FAULTS[kind].plant(chunk, idx, rng)
+        taken[idx] = True
+        planted[kind] = idx
+    for name in (_C.parallax, _C.feh):
+        table = table.set_column(table.schema.get_field_index(name), name,
+                                 pa.array(cols[name]))
+    table = table.set_column(table.schema.get_field_index(_C.sp_type), _C.sp_type,
+                             pa.array(sp_type, pa.string()))
+    return table, planted
+
+
+def _new_clusters(rng: Generator, table: pa.Table, rows: int) -> pa.Table:
+    """About ``rows`` clean stars in whole new clusters, numbered after the last cluster
+    of ``table``; the rows that drew a planted fault are left out."""
+    numbers = pc.cast(pc.utf8_slice_codeunits(table[_C.cluster], 2), pa.int64())
+    clusters = _make_clusters(rows, int(rng.integers(2**62)))
+    first_new = int(pc.max(numbers).as_py()) + 1
+    new_numbers = clusters.numbers + first_new
+    width = max(clusters.number_width, len(str(int(new_numbers.max()))))
+    clusters = replace(clusters, numbers=new_numbers, number_width=width,
+                       names=_cluster_names(new_numbers, width))
+    members, truth = _make_chunk(clusters, 0, rows, int(rng.integers(2**62)), 0)
+    keep = np.ones(members.num_rows, dtype=bool)
+    keep[truth["row"].to_numpy()] = False
+    return members.filter(pa.array(keep))
+
+
+# =========================================================================================
 # Clusters
 # =========================================================================================
 
@@ -600,11 +841,13 @@ def _make_clusters(rows: int, seed: int) -> _Clusters:
     feh = np.clip(rng.normal(FEH_MEAN, FEH_SD, k), *FEH_CLIP)
     d0, d1 = DISTANCE_RANGE_PC
     distance = np.sqrt(rng.uniform(d0**2, d1**2, k))
-    names = pc.binary_join_element_wise(
-        "C", pc.utf8_lpad(pc.cast(pa.array(numbers), pa.string()), width=width, padding="0"),
-        "-")
-    return _Clusters(names, numbers, stop - sizes, stop, age, feh, distance, width,
-                     max(5, len(str(int(sizes.max())))))
+    return _Clusters(_cluster_names(numbers, width), numbers, stop - sizes, stop, age, feh,
+                     distance, width, max(5, len(str(int(sizes.max())))))
+
+
+def _cluster_names(numbers: NDArray[np.int64], width: int) -> pa.Array:
+    """Survey names of numbered clusters: "C-017"."""
+    return pc.binary_join_element_wise("C", _padded(numbers, width), "-")
 
 
 # =========================================================================================

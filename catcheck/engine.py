@@ -11,6 +11,7 @@ only counts and a few examples per rule stay behind.
 
 from __future__ import annotations
 
+import copy
 from collections import Counter
 from collections.abc import Callable, Iterator, Sequence
 from dataclasses import dataclass, field
@@ -125,7 +126,17 @@ class RunStats:
 
 FlagSink = Callable[[pa.Table], None]
 #: sees a checked batch and its flags (None when it has none)
-BatchObserver = Callable[[StarBatch, pa.Table | None], None]
+class BatchObserver(Protocol):
+    """Something that gathers from every checked batch (a diagram's density image, say).
+
+    ``observe`` sees each batch once with its flags.  With worker processes, each piece is
+    observed by a fresh copy of the observer in the worker and the copies are merged back
+    here in row order, so ``merge`` must give what observing both parts in turn gives.
+    """
+
+    def observe(self, stars: StarBatch, flags: pa.Table | None) -> None: ...
+
+    def merge(self, other: Any) -> None: ...
 
 
 @dataclass
@@ -156,11 +167,10 @@ def run_rules(catalogue: Catalogue, profile: Profile, rules: Sequence[Rule], sin
               workers: int = 1, observers: Sequence[BatchObserver] = ()) -> RunStats:
     """Check every row of ``catalogue`` against ``rules``; flags go to ``sink`` in row order.
 
-    With ``workers`` > 1, that many batches are checked at once in threads (numpy and
-    Arrow release the GIL for their array work); results are still taken in order.
-    Each ``observers`` callable sees every checked batch once with its flags, in row
-    order, in the calling thread (for example to accumulate the density image of a
-    diagram and mark the flagged stars on it).
+    With ``workers`` > 1, a Parquet catalogue's row groups are checked in that many forked
+    worker processes (each reads its own); other inputs have their batches checked in
+    threads.  Either way results are taken in row order.  Each of ``observers`` sees
+    every checked batch once with its flags (see :class:`BatchObserver`).
     """
     stats, checker, labels = start_run(catalogue, profile, rules)
 
@@ -168,7 +178,9 @@ def run_rules(catalogue: Catalogue, profile: Profile, rules: Sequence[Rule], sin
         for first_row, batch in catalogue.batches(reading.columns, batch_rows):
             yield canonical_batch(reading, batch, first_row, labels)
 
-    group_stats = _group_pass(checker.rules, profile, converted, labels)
+    pieces = _pieces(catalogue, workers)
+    group_stats = _group_pass(checker.rules, profile, converted, labels, pieces, batch_rows,
+                              workers)
     labels.phases.unmapped.clear()  # pass 2 counts the labels again
 
     def with_group_stats(stars: StarBatch) -> BatchResult:
@@ -178,16 +190,16 @@ def run_rules(catalogue: Catalogue, profile: Profile, rules: Sequence[Rule], sin
             result.stars = stars
         return result
 
-    pieces = _pieces(catalogue, workers, observers)
     if pieces:
         results = _check_pieces(pieces, profile, batch_rows, labels, with_group_stats,
-                                workers)
+                                workers, observers)
     else:
         results = ordered_map(with_group_stats, prefetch(converted()), workers)
     for result in results:
-        for observe in observers:
-            observe(result.stars, result.flags)
-        result.stars = None
+        if result.stars is not None:  # observed here, in row order
+            for observer in observers:
+                observer.observe(result.stars, result.flags)
+            result.stars = None
         stats.add_batch(result, sink)
         if progress:
             progress(result.rows)
@@ -195,14 +207,13 @@ def run_rules(catalogue: Catalogue, profile: Profile, rules: Sequence[Rule], sin
     return stats
 
 
-def _pieces(catalogue: Catalogue, workers: int, observers: Sequence[BatchObserver]
-            ) -> list[Any] | None:
+def _pieces(catalogue: Catalogue, workers: int) -> list[Any] | None:
     """The catalogue's independent pieces when worth spreading over processes, else None.
 
-    Processes need a catalogue that can be cut (Parquet row groups), more than one piece,
-    a platform that forks, and no observers (they see batches in this process).
+    Processes need a catalogue that can be cut (Parquet row groups), more than one piece
+    and a platform that forks.
     """
-    if workers <= 1 or observers or not can_fork():
+    if workers <= 1 or not can_fork():
         return None
     cut = getattr(catalogue, "pieces", None)
     pieces = cut() if cut else []
@@ -210,24 +221,33 @@ def _pieces(catalogue: Catalogue, workers: int, observers: Sequence[BatchObserve
 
 
 def _check_pieces(pieces: Sequence[Any], profile: Profile, batch_rows: int, labels: Labels,
-                  check: Callable[[StarBatch], BatchResult], workers: int
-                  ) -> Iterator[BatchResult]:
+                  check: Callable[[StarBatch], BatchResult], workers: int,
+                  observers: Sequence[BatchObserver]) -> Iterator[BatchResult]:
     """Check whole pieces in forked worker processes; batch results in row order.
 
     Each worker reads its piece itself (no batch crosses a process boundary), so only
-    flags and counts come back.  Unmapped phase labels are counted where the batch is
-    read and added up here.
+    flags, counts and the observers' gatherings come back.  Unmapped phase labels are
+    counted where the batch is read and added up here; observers are merged here.
     """
-    def check_piece(index: int) -> tuple[list[BatchResult], Counter[str]]:
+    def check_piece(index: int
+                    ) -> tuple[list[BatchResult], Counter[str], list[BatchObserver]]:
         labels.phases.unmapped.clear()  # this process's count for this piece only
-        results = [check(canonical_batch(profile, batch, first_row, labels))
-                   for first_row, batch in pieces[index].batches(profile.columns,
-                                                                 batch_rows)]
-        return results, Counter(labels.phases.unmapped)
+        watching = [copy.deepcopy(observer) for observer in observers]  # still empty here
+        results = []
+        for first_row, batch in pieces[index].batches(profile.columns, batch_rows):
+            result = check(canonical_batch(profile, batch, first_row, labels))
+            if result.stars is not None:
+                for observer in watching:
+                    observer.observe(result.stars, result.flags)
+                result.stars = None
+            results.append(result)
+        return results, Counter(labels.phases.unmapped), watching
 
     unmapped = labels.phases.unmapped
-    for results, piece_unmapped in forked_map(check_piece, len(pieces), workers):
+    for results, piece_unmapped, watched in forked_map(check_piece, len(pieces), workers):
         unmapped.update(piece_unmapped)
+        for observer, piece_observer in zip(observers, watched, strict=True):
+            observer.merge(piece_observer)
         yield from results
 
 
@@ -267,19 +287,34 @@ def group_plan(rules: Sequence[Rule], profile: Profile
 
 
 def _group_pass(rules: Sequence[Rule], profile: Profile,
-                batches: Callable[[Profile], Iterator[StarBatch]],
-                labels: Labels) -> dict[str, GroupSummary]:
+                batches: Callable[[Profile], Iterator[StarBatch]], labels: Labels,
+                pieces: Sequence[Any] | None = None, batch_rows: int = 0, workers: int = 1
+                ) -> dict[str, GroupSummary]:
     """Pass 1: aggregate every group variable the rules need over the whole catalogue.
 
-    Only the columns of the quantities the group rules need are read.
+    Only the columns of the quantities the group rules need are read.  With ``pieces``,
+    each worker process accumulates whole pieces and the partial states are merged in row
+    order, which gives exactly the statistics of one pass (see GroupAccumulator.merge).
     """
     plan = group_plan(rules, profile)
     if plan is None:
         return {}
     variables, reading = plan
     accumulator = GroupAccumulator(variables)
-    for stars in prefetch(batches(reading)):
-        accumulator.add(stars)
+    if not pieces:
+        for stars in prefetch(batches(reading)):
+            accumulator.add(stars)
+        return accumulator.finish(len(labels.groups.code_of))
+
+    def accumulate_piece(index: int) -> tuple[GroupAccumulator, list[str]]:
+        partial = GroupAccumulator(variables)
+        for first_row, batch in pieces[index].batches(reading.columns, batch_rows):
+            partial.add(canonical_batch(reading, batch, first_row, labels))
+        partial.variables = {}  # code, not state: only the samples go back
+        return partial, list(labels.groups.code_of)  # this process's labels, in code order
+
+    for partial, group_labels in forked_map(accumulate_piece, len(pieces), workers):
+        accumulator.merge(partial, labels.groups.register(group_labels))
     return accumulator.finish(len(labels.groups.code_of))
 
 

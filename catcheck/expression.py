@@ -29,7 +29,9 @@ quantity is NaN before it applies a rule, so this rarely matters.
 
 Limits
 ------
-- at most :data:`MAX_LENGTH` characters and :data:`MAX_NODES` expression nodes;
+- at most :data:`MAX_LENGTH` characters, :data:`MAX_NODES` expression nodes and
+  :data:`MAX_DEPTH` levels of nesting (checked before anything is compiled, so a hostile
+  expression cannot exhaust the stack or the memory);
 - the exponent of ``**`` must be a constant (a number, or arithmetic on numbers, folded when
   the rule is compiled) with ``|p| <= MAX_EXPONENT``.  An exponent that depends on a quantity
   (``10 ** logg``) is rejected, not clipped: clipping would silently compute a wrong number.
@@ -48,7 +50,8 @@ from __future__ import annotations
 import ast
 import difflib
 import re
-from collections.abc import Collection, Mapping
+from collections import deque
+from collections.abc import Collection, Iterator, Mapping
 from dataclasses import dataclass, field
 from functools import reduce
 from typing import Any, ClassVar, NoReturn
@@ -63,6 +66,10 @@ MAX_LENGTH = 2000
 MAX_NODES = 200
 """Most expression nodes (names, numbers, operators, calls) one expression may have."""
 
+MAX_DEPTH = 100
+"""Deepest nesting of expression nodes (parentheses alone do not count; a chain
+such as ``a + b + c`` nests one level per operator)."""
+
 MAX_EXPONENT = 10.0
 """Largest absolute value of the (constant) exponent of ``**``."""
 
@@ -71,6 +78,9 @@ MAX_FORMAT_NUMBER = 50
 
 MAX_FORMAT_SPEC = 20
 """Longest format spec in a message template, in characters."""
+
+MAX_SHOWN = 76
+"""Widest excerpt of an expression shown above the caret of an error."""
 
 # The kind of value a node yields; checked when the expression is compiled.
 NUMBER = "number"
@@ -180,12 +190,30 @@ class ExpressionError(ValueError):
         self.reason = reason
 
     def __str__(self) -> str:
+        line, caret = self.excerpt()
+        return f"{line}\n{caret}\n{self.reason}"
+
+    def excerpt(self, width: int = MAX_SHOWN) -> tuple[str, str]:
+        """The line holding the offending part and a caret line pointing at it.
+
+        A line longer than ``width`` characters is cut to a window around the caret, with
+        ``...`` where text is left out; characters that are not printable show as ``?``,
+        so a rule pack cannot send control sequences to the terminal.
+        """
         start = self.text.rfind("\n", 0, self.offset) + 1
         end = self.text.find("\n", self.offset)
         line = self.text[start:] if end < 0 else self.text[start:end]
+        column = self.offset - start
+        if len(line) > width:
+            first = max(0, min(column - width // 2, len(line) - width))
+            before = "..." if first else ""
+            after = "..." if first + width < len(line) else ""
+            line = before + line[first : first + width] + after
+            column += len(before) - first
+        line = "".join(char if char.isprintable() or char == "\t" else "?" for char in line)
         # Keep tabs so the caret lines up under a line that contains them.
-        pad = "".join("\t" if char == "\t" else " " for char in line[: self.offset - start])
-        return f"{line}\n{pad}^\n{self.reason}"
+        pad = "".join("\t" if char == "\t" else " " for char in line[:column])
+        return line, pad + "^"
 
 
 # --- compiled nodes -----------------------------------------------------------------------
@@ -387,7 +415,8 @@ class _Source:
 def _check_nodes(tree: ast.Expression, source: _Source) -> None:
     """Reject any node type outside the whitelist, dunder names, and oversized trees."""
     count = 0
-    for node in ast.walk(tree.body):  # breadth first: outer nodes before inner ones
+    too_deep: ast.AST | None = None  # reported once every node has passed the other checks
+    for node, depth in _breadth_first(tree.body):  # outer nodes before inner ones
         if isinstance(node, _CHECKED_BY_PARENT):
             continue
         if not isinstance(node, _ALLOWED_NODES):
@@ -400,6 +429,8 @@ def _check_nodes(tree: ast.Expression, source: _Source) -> None:
         count += 1
         if count > MAX_NODES:
             raise source.error(node, f"the expression has more than {MAX_NODES} parts")
+        if depth > MAX_DEPTH and too_deep is None:
+            too_deep = node
         if isinstance(node, ast.Name) and node.id.startswith("__"):
             raise source.error(node, "names starting with '__' are not allowed")
         if isinstance(node, ast.BinOp) and type(node.op) not in _BINARY:
@@ -410,6 +441,19 @@ def _check_nodes(tree: ast.Expression, source: _Source) -> None:
             for op, left in zip(node.ops, [node.left, *node.comparators], strict=False):
                 if type(op) not in _COMPARISONS and not isinstance(op, _MEMBERSHIP):
                     _reject_operator(op, left, source)
+    if too_deep is not None:
+        raise source.error(
+            too_deep, f"the expression is nested too deeply (more than {MAX_DEPTH} levels)"
+        )
+
+
+def _breadth_first(root: ast.AST) -> Iterator[tuple[ast.AST, int]]:
+    """Every node under ``root`` (itself included) with its depth, outer nodes first."""
+    queue = deque([(root, 1)])
+    while queue:
+        node, depth = queue.popleft()
+        yield node, depth
+        queue.extend((child, depth + 1) for child in ast.iter_child_nodes(node))
 
 
 def _reject_operator(op: ast.AST, before: ast.expr, source: _Source) -> NoReturn:

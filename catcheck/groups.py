@@ -24,7 +24,7 @@ import pyarrow.compute as pc
 
 SAMPLE_SIZE = 512
 #: pending sample entries (per variable) that trigger a merge
-_MERGE_AT = 1 << 20
+_MERGE_AT = 1 << 16
 #: 1.4826 x MAD estimates the standard deviation of a normal distribution
 MAD_TO_SIGMA = 1.4826
 NO_GROUP = -1
@@ -135,6 +135,26 @@ class _BottomSample:
         if self.pending_size > max(_MERGE_AT, len(self.codes)):
             self._merge()
 
+    def merge(self, other: _BottomSample, codes: np.ndarray) -> None:
+        """Take in the sample of ``other``, drawn from rows after all of this sample's.
+
+        ``codes[c]`` is this sample's group code for group code ``c`` of ``other``.  The
+        result is the sample of all rows of both: equal hashes keep row order because
+        ``other``'s rows come later.
+        """
+        other._merge()
+        groups = codes[:len(other.counts)]
+        if not len(groups):
+            return
+        self._grow(int(groups.max()) + 1)
+        self.counts[groups] += other.counts  # codes are distinct: no repeated index
+        mapped = groups[other.codes].astype(np.int32)
+        below = other.hashes < self.cutoff[mapped]
+        self.pending.append((mapped[below], other.hashes[below], other.values[below]))
+        self.pending_size += int(below.sum())
+        if self.pending_size > max(_MERGE_AT, len(self.codes)):
+            self._merge()
+
     def _merge(self) -> None:
         if not self.pending:
             return
@@ -185,7 +205,8 @@ def _group_median(codes: np.ndarray, values: np.ndarray, groups: int) -> np.ndar
     median = np.full(groups, np.nan)
     if len(codes):
         by_group = pd.Series(values, copy=False).groupby(codes, sort=False).median()
-        median[by_group.index.to_numpy()] = by_group.to_numpy(dtype=float)
+        # + 0.0 turns a median of -0.0 into 0.0, which signed zeros in another order give
+        median[by_group.index.to_numpy()] = by_group.to_numpy(dtype=float) + 0.0
     return median
 
 
@@ -203,6 +224,16 @@ class GroupAccumulator:
         hashes = row_hash(np.arange(batch.first_row, batch.first_row + len(codes)))
         for name, variable in self.variables.items():
             self.samples[name].add(codes, hashes, np.asarray(variable(batch), dtype=float))
+
+    def merge(self, other: GroupAccumulator, codes: np.ndarray) -> None:
+        """Take in ``other``'s state, accumulated over rows after all of this one's.
+
+        ``codes[c]`` is this accumulator's group code for ``other``'s group code ``c``
+        (:meth:`GroupKeys.register` of ``other``'s labels in code order gives it).  Merging
+        partial states in row order gives exactly the statistics of one pass over all rows.
+        """
+        for name, sample in self.samples.items():
+            sample.merge(other.samples[name], codes)
 
     def finish(self, groups: int) -> dict[str, GroupSummary]:
         """Statistics by variable, for ``groups`` group codes; the samples are released."""

@@ -1,8 +1,11 @@
-"""Writing the report: flags in Parquet/CSV/JSON lines, summary.json, report.md.
+"""Writing the report: flags in Parquet/CSV/JSON lines, summary.json, report.md, and the
+optional per-row outputs (annotated catalogue, clean/flagged split).
 
 Everything is written into a staging directory inside the output directory and moved into
 place only when the whole report is complete, so an interrupted or failed run leaves the
-previous report intact and never half a new one.
+previous report intact and never half a new one.  Optional files of an older run that this
+run did not write (an annotated catalogue, a split) are removed on commit, so the directory
+never mixes two runs.
 """
 
 from __future__ import annotations
@@ -11,8 +14,8 @@ import json
 import os
 import shutil
 import tempfile
-from collections.abc import Iterator
-from contextlib import contextmanager
+from collections.abc import Iterator, Sequence
+from contextlib import contextmanager, suppress
 from pathlib import Path
 from types import TracebackType
 from typing import Any
@@ -25,6 +28,10 @@ from catcheck.errors import OutputError, UsageError
 from catcheck.flags import FLAG_SCHEMA
 
 FORMATS = ("parquet", "csv", "jsonl")
+#: files written only when asked for (--annotate, --split); removed when a run does not ask
+OPTIONAL_FILES = ("annotated.parquet", "clean.parquet", "flagged.parquet",
+                  # the visual report (plot extra; a figure needs its quantities)
+                  "report.html", "hr_diagram.png", "kiel_diagram.png")
 
 
 class ReportDirectory:
@@ -36,6 +43,7 @@ class ReportDirectory:
                              f"got {flags_format!r}")
         self.out_dir = Path(out_dir)
         self.flags_format = flags_format
+        self._created = not self.out_dir.exists()  # removed again if the run fails
         try:
             self.out_dir.mkdir(parents=True, exist_ok=True)
             self.staging = Path(tempfile.mkdtemp(prefix=".catcheck-staging-", dir=self.out_dir))
@@ -45,6 +53,7 @@ class ReportDirectory:
                               fix="choose a writable directory with --out") from None
         self._writer: pq.ParquetWriter | None = None
         self._flags_path = self.staging / "flags.parquet"
+        self._flags_complete = False
 
     def __enter__(self) -> ReportDirectory:
         return self
@@ -55,25 +64,57 @@ class ReportDirectory:
 
     def add_flags(self, flags: pa.Table) -> None:
         """Append a batch of flag records (streamed to disk)."""
+        if self._flags_complete:
+            raise RuntimeError("flags added after flags_file() closed them")
         with self._writing():
             if self._writer is None:
                 self._writer = pq.ParquetWriter(self._flags_path, FLAG_SCHEMA)
             self._writer.write_table(flags)
 
     def flags_file(self) -> Path:
-        """The staged flags in Parquet (closed and complete)."""
+        """The staged flags in Parquet (closed and complete; later calls return the same file)."""
+        if self._flags_complete:
+            return self._flags_path
         with self._writing():
             if self._writer is None:
                 pq.write_table(FLAG_SCHEMA.empty_table(), self._flags_path)
             else:
                 self._writer.close()
         self._writer = None
+        self._flags_complete = True
         return self._flags_path
+
+    @contextmanager
+    def parquet_writers(self, names: Sequence[str], schema: pa.Schema
+                        ) -> Iterator[dict[str, pq.ParquetWriter]]:
+        """Staged Parquet files of one schema, written batch by batch; closed on exit.
+
+        A file that receives no batch is still a valid Parquet file with no rows.  Only
+        text, dictionary and unsigned integer columns are dictionary-encoded: measurements
+        rarely repeat, and trying them first made writing a catalogue copy about 3 times
+        slower (and its file larger) on the demo catalogue.
+        """
+        writers: dict[str, pq.ParquetWriter] = {}
+        encoded = [field.name for field in schema if _repeats(field.type)]
+        with self._writing():
+            try:
+                for name in names:
+                    writers[name] = pq.ParquetWriter(self.staging / name, schema,
+                                                     use_dictionary=encoded)
+                yield writers
+            finally:
+                for writer in writers.values():
+                    writer.close()
 
     def write_text(self, name: str, text: str) -> None:
         """Stage a text file."""
         with self._writing():
             (self.staging / name).write_text(text, encoding="utf-8")
+
+    def write_bytes(self, name: str, data: bytes) -> None:
+        """Stage a binary file (a figure)."""
+        with self._writing():
+            (self.staging / name).write_bytes(data)
 
     @contextmanager
     def _writing(self) -> Iterator[None]:
@@ -102,6 +143,9 @@ class ReportDirectory:
             for other in FORMATS:  # a flags file of another format is from an older run
                 if other != self.flags_format:
                     (self.out_dir / f"flags.{other}").unlink(missing_ok=True)
+            for optional in OPTIONAL_FILES:  # not asked for this time: from an older run
+                if not (self.staging / optional).exists():
+                    (self.out_dir / optional).unlink(missing_ok=True)
             for path in sorted(self.staging.iterdir()):
                 target = self.out_dir / path.name
                 os.replace(path, target)
@@ -114,11 +158,22 @@ class ReportDirectory:
         return written
 
     def discard(self) -> None:
-        """Remove the staging area (a no-op after commit)."""
+        """Remove the staging area (a no-op after commit), and the output directory if this
+        run created it and it is still empty (a failed first run leaves nothing behind)."""
         if self._writer is not None:
-            self._writer.close()
+            with suppress(OSError):  # a full disk fails the close too; the file goes anyway
+                self._writer.close()
             self._writer = None
         shutil.rmtree(self.staging, ignore_errors=True)
+        if self._created:
+            with suppress(OSError):  # not empty: a committed report, or files of others
+                self.out_dir.rmdir()
+
+
+def _repeats(kind: pa.DataType) -> bool:
+    """Columns whose values usually repeat: labels, identifiers of groups, bit masks."""
+    return (pa.types.is_string(kind) or pa.types.is_large_string(kind)
+            or pa.types.is_dictionary(kind) or pa.types.is_unsigned_integer(kind))
 
 
 def _convert_flags(parquet: Path, target: Path, flags_format: str) -> None:
@@ -142,13 +197,18 @@ def _json_value(value: Any) -> Any:
     return value
 
 
-def read_flags(path: Path) -> pa.Table:
-    """Read a flags file written by :class:`ReportDirectory`, in any of its formats."""
+def read_flags(path: Path, columns: Sequence[str] | None = None) -> pa.Table:
+    """Read a flags file written by :class:`ReportDirectory`, in any of its formats.
+
+    ``columns`` picks some of the flags columns (all by default).
+    """
     if path.suffix == ".parquet":
-        return pq.read_table(path)
+        return pq.read_table(path, columns=None if columns is None else list(columns))
     if path.suffix == ".csv":
-        return pacsv.read_csv(path, convert_options=pacsv.ConvertOptions(
+        table = pacsv.read_csv(path, convert_options=pacsv.ConvertOptions(
             column_types=FLAG_SCHEMA)).cast(FLAG_SCHEMA)
-    with open(path, encoding="utf-8") as lines:
-        records = [json.loads(line) for line in lines if line.strip()]
-    return pa.Table.from_pylist(records, schema=FLAG_SCHEMA)
+    else:
+        with open(path, encoding="utf-8") as lines:
+            records = [json.loads(line) for line in lines if line.strip()]
+        table = pa.Table.from_pylist(records, schema=FLAG_SCHEMA)
+    return table if columns is None else table.select(list(columns))

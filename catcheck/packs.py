@@ -25,7 +25,7 @@ from catcheck.quantities import QUANTITIES
 
 SEVERITIES = ("error", "warning", "info")
 SEVERITY_RANK = {"info": 0, "warning": 1, "error": 2}
-DEFAULT_PACKS = ("core", "evolution", "clusters")
+DEFAULT_PACKS = ("core", "evolution", "clusters", "units")
 
 _RULE_ID = re.compile(r"^[a-z][a-z0-9]*(-[a-z0-9]+)*$")
 _PACK_KEYS = ("name", "description")
@@ -163,7 +163,8 @@ def _add_entry(rules: dict[str, Rule], entry: dict[str, Any], path: Path) -> Non
             e.get("id") == rule_id for e in _read_pack(builtin_packs()[name]))), None)
         fix = (f"it is a rule of the built-in pack {home!r}: name that pack before this file, "
                f"e.g. --rules {home} --rules {path}" if home
-               else 'give check = "..." or when/require expressions to define it')
+               else did_you_mean(rule_id, rules)
+               or 'give check = "..." or when/require expressions to define it')
         raise RulePackError(f"rule {rule_id!r} is not defined by an earlier pack", where=where,
                             fix=fix)
     rules[rule_id] = _define(rule_id, entry, where)
@@ -248,20 +249,26 @@ def _expression_check(entry: Mapping[str, Any], where: str) -> Check:
     from catcheck.expression import ExpressionError, compile_expression, compile_message
 
     names = [n for n in QUANTITIES if n != "spectral_type"]
-    try:
-        when = compile_expression(str(entry.get("when", "1 == 1")), names)
-        if "require" not in entry:
-            raise RulePackError("an expression rule needs require = \"...\"", where=where,
-                                fix='e.g. require = "teff < 5800"')
-        require = compile_expression(str(entry["require"]), names)
-        message = compile_message(str(entry.get("message", "row fails: " + entry["require"])),
-                                  names)
-    except ExpressionError as exc:
-        raise RulePackError(f"invalid expression\n{exc}", where=where) from None
+    if "require" not in entry:
+        raise RulePackError("an expression rule needs require = \"...\"", where=where,
+                            fix='e.g. require = "teff < 5800"')
+    default_message = f"row fails: {entry['require']}".replace("{", "{{").replace("}", "}}")
+    compiled: dict[str, Any] = {}
+    for key, compile_text, default in (("when", compile_expression, "1 == 1"),
+                                       ("require", compile_expression, None),
+                                       ("message", compile_message, default_message)):
+        try:
+            compiled[key] = compile_text(entry.get(key, default), names)
+        except ExpressionError as exc:  # the reason on the line, the text and a caret below
+            kind = "message template" if key == "message" else "expression"
+            raise RulePackError(f"invalid {kind}: {exc.reason}", where=f"{where}, {key}",
+                                detail="\n".join(exc.excerpt())) from None
+    when, require, message = compiled["when"], compiled["require"], compiled["message"]
     for key, expression in (("when", when), ("require", require)):
         if not expression.boolean:
             raise RulePackError(f"{key} = {expression.text!r} is a number, not a condition",
-                                where=where, fix=f"compare it, e.g. {key} = \"teff < 5800\"")
+                                where=f"{where}, {key}",
+                                fix=f"compare it, e.g. {key} = \"teff < 5800\"")
     needed = tuple(sorted(when.names | require.names | message.names))
     # a value tested with isnan() may be missing; so may one shown only in the message
     judged = tuple(sorted(when.required | require.required))

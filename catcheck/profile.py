@@ -27,9 +27,21 @@ _GROUPS_KEYS = ("table", "key", "quantities")
 
 
 def did_you_mean(word: str, choices: Collection[str]) -> str:
-    """A ' did you mean ...?' hint for a near miss, or an empty string."""
-    close = difflib.get_close_matches(word, list(choices), n=1, cutoff=0.6)
-    return f"did you mean {close[0]!r}?" if close else ""
+    """A 'did you mean ...?' hint for a near miss, or an empty string.
+
+    A choice that differs only in case wins (``TEFF`` -> ``Teff``), then one with the same
+    letters in another order (``RBG`` -> ``RGB``), then the closest spelling, compared
+    without regard to case, if it is close enough.
+    """
+    by_lower: dict[str, str] = {}
+    for choice in choices:
+        by_lower.setdefault(str(choice).lower(), str(choice))
+    lower = str(word).lower()
+    close = difflib.get_close_matches(lower, list(by_lower), n=3, cutoff=0.6)
+    if not close:
+        return ""
+    best = next((c for c in close if sorted(c) == sorted(lower)), close[0])
+    return f"did you mean {by_lower[best]!r}?"
 
 
 @dataclass(frozen=True)
@@ -112,7 +124,8 @@ class Profile:
                     raise ProfileError(
                         f"column {column!r} holds {kind}, not numbers",
                         where=f"{self.source}: [quantities.{mapping.quantity}]",
-                        fix=f"map {mapping.quantity} to a numeric column",
+                        fix=f"map {mapping.quantity} to a numeric column, or write "
+                        f"{column!r} as numbers (null for a missing value)",
                     )
 
     def _column_keys(self) -> list[tuple[str, str]]:

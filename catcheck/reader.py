@@ -24,7 +24,7 @@ _GLOB_CHARS = set("*?[")
 def resolve_sources(sources: Sequence[str | Path]) -> list[Path]:
     """Expand files, directories and globs into an ordered list of Parquet files."""
     if not sources:
-        raise CatalogueError("no catalogue given", fix="name a Parquet file, directory or glob")
+        raise CatalogueError("no catalogue given", fix="name a catalogue file, directory or glob")
     files: list[Path] = []
     for source in sources:
         text = str(source)
@@ -49,7 +49,7 @@ def resolve_sources(sources: Sequence[str | Path]) -> list[Path]:
             files.append(path)
         else:
             raise CatalogueError("catalogue not found", where=text,
-                                 fix="check the path (a Parquet file, directory or glob)")
+                                 fix="check the path (a catalogue file, directory or glob)")
     return files
 
 
@@ -206,7 +206,8 @@ def _file_batches(path: Path, columns: Sequence[str], batch_rows: int,
                                        row_groups=row_groups, use_threads=threads)
     except (OSError, pa.ArrowException) as exc:
         raise CatalogueError(f"cannot read the catalogue: {_first_line(exc)}",
-                             where=str(path), fix="is the file complete?") from None
+                             where=str(path),
+                             fix="the file is damaged or incomplete: write it again") from None
 
 
 def _read_alike(actual: pa.DataType, expected: pa.DataType) -> bool:

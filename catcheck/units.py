@@ -66,7 +66,7 @@ _MASS_UNITS = {
 
 #: quantity -> declared unit -> conversion to the canonical unit (see catcheck.quantities)
 UNITS: dict[str, dict[str, Conversion]] = {
-    "teff": {"K": _SAME, "dex(K)": _DEX},
+    "teff": {"K": _SAME, "dex(K)": _DEX, "kK": Conversion("linear", 1e3)},
     "logg": {"dex(cm/s2)": _SAME},
     "luminosity": {
         "Lsun": _SAME,

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import importlib.util
 from pathlib import Path
 
 import numpy as np
@@ -69,3 +70,9 @@ def write_catalogue(tmp_path: Path, frame: pd.DataFrame, name: str = "cat.parque
                    row_group_size=row_group_size)
     (tmp_path / "profile.toml").write_text(PROFILE_TOML)
     return path
+
+
+def visual_report_files(*figures: str) -> list[str]:
+    """report.html and the given figures, which a report holds when matplotlib (the plot
+    extra) is installed; nothing otherwise."""
+    return [*figures, "report.html"] if importlib.util.find_spec("matplotlib") else []

@@ -8,6 +8,7 @@ import sys
 
 import pyarrow.parquet as pq
 import pytest
+from factory import visual_report_files
 
 FLAG_COLUMNS = ["row", "id", "rule", "severity", "message", "observed", "expected",
                 "deviation"]
@@ -32,9 +33,9 @@ def test_demo_writes_the_documented_layout(demo) -> None:
     out, stdout = demo
     assert sorted(p.name for p in out.iterdir()) == ["catalogue.parquet", "profile.toml",
                                                       "report", "truth.parquet"]
-    assert sorted(p.name for p in (out / "report").iterdir()) == ["flags.parquet",
-                                                                   "report.md",
-                                                                   "summary.json"]
+    assert sorted(p.name for p in (out / "report").iterdir()) == sorted(
+        ["flags.parquet", "report.md", "summary.json",
+         *visual_report_files("hr_diagram.png", "kiel_diagram.png")])
     assert pq.read_schema(out / "report" / "flags.parquet").names == FLAG_COLUMNS
     assert pq.read_schema(out / "truth.parquet").names == ["row", "id", "fault"]
     summary = json.loads((out / "report" / "summary.json").read_text())

@@ -7,7 +7,7 @@ import json
 import numpy as np
 import pandas as pd
 import pytest
-from factory import PROFILE_TOML, sun_like, write_catalogue
+from factory import PROFILE_TOML, sun_like, visual_report_files, write_catalogue
 
 import catcheck
 from catcheck.profile import profile_from_dict
@@ -169,8 +169,8 @@ def test_report_files_written_atomically(tmp_path) -> None:
     path = write_catalogue(tmp_path, frame)
     out = tmp_path / "report"
     result = catcheck.check(path, tmp_path / "profile.toml", out=out, rules=CORE)
-    assert sorted(p.name for p in out.iterdir()) == ["flags.parquet", "report.md",
-                                                      "summary.json"]
+    assert sorted(p.name for p in out.iterdir()) == sorted(
+        ["flags.parquet", "report.md", "summary.json", *visual_report_files("hr_diagram.png")])
     summary = json.loads((out / "summary.json").read_text())
     assert summary["rows"] == 50 and summary["flagged_rows"] == 1
     assert result.flags["row"].tolist() == [10]
@@ -248,3 +248,17 @@ message = "{phase} star at {teff:.0f} K is too hot"
     giants = int((frame["state"] == "giant").sum())
     assert (counts["checked"], counts["not_applicable"]) == (giants, 9 - giants)
     assert counts["checked"] + counts["skipped"] == 9
+
+
+def test_worker_processes_give_the_same_group_statistics(tmp_path) -> None:
+    """The cluster pass merged from worker processes equals one pass over all rows."""
+    from catcheck.demo import write_demo
+
+    files = write_demo(tmp_path / "demo", rows=12_000, seed=4, chunk_rows=2_500)
+    one = catcheck.check(files.catalogue, files.profile, batch_rows=1_000)
+    two = catcheck.check(files.catalogue, files.profile, batch_rows=1_000, workers=2)
+    group_rules = {r["id"] for r in one.summary["rules"] if r["pack"] == "clusters"}
+    assert one.flags["rule"].isin(group_rules).sum() > 10
+    pd.testing.assert_frame_equal(one.flags, two.flags)
+    for key in ("rules", "flagged_rows", "rows_by_severity", "unmapped_phase_labels"):
+        assert one.summary[key] == two.summary[key]

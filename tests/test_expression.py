@@ -19,6 +19,7 @@ import pytest
 
 import catcheck.expression as expression
 from catcheck.expression import (
+    MAX_DEPTH,
     MAX_LENGTH,
     MAX_NODES,
     Expression,
@@ -334,9 +335,9 @@ def test_recursion_error_in_the_compiler_becomes_an_expression_error() -> None:
     while frame is not None:
         depth, frame = depth + 1, frame.f_back
     limit = sys.getrecursionlimit()
-    sys.setrecursionlimit(depth + 100)  # far fewer frames than 190 nested minus signs need
+    sys.setrecursionlimit(depth + 100)  # far fewer frames than 99 nested minus signs need
     try:
-        err = rejected("-" * 190 + "teff")
+        err = rejected("-" * (MAX_DEPTH - 1) + "teff")  # within MAX_DEPTH: reaches the compiler
     finally:
         sys.setrecursionlimit(limit)
     assert err.reason == "the expression is nested too deeply"

@@ -7,7 +7,7 @@ import pandas as pd
 import pyarrow as pa
 import pyarrow.parquet as pq
 import pytest
-from factory import PROFILE_TOML, sun_like, write_catalogue
+from factory import PROFILE_TOML, sun_like, visual_report_files, write_catalogue
 
 import catcheck
 from catcheck.errors import CatalogueError, ProfileError, RulePackError
@@ -87,8 +87,8 @@ def test_switching_flag_format_removes_the_old_flags_file(tmp_path) -> None:
     out = tmp_path / "report"
     catcheck.check(path, tmp_path / "profile.toml", ["core"], out=out, flags_format="csv")
     catcheck.check(path, tmp_path / "profile.toml", ["core"], out=out)
-    assert sorted(p.name for p in out.iterdir()) == ["flags.parquet", "report.md",
-                                                      "summary.json"]
+    assert sorted(p.name for p in out.iterdir()) == sorted(
+        ["flags.parquet", "report.md", "summary.json", *visual_report_files("hr_diagram.png")])
 
 
 def test_nan_and_integral_float_group_labels() -> None:

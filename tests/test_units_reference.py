@@ -43,6 +43,7 @@ ASTROPY_CANONICAL: dict[str, u.UnitBase] = {
 ASTROPY_UNITS: dict[tuple[str, str], tuple[u.UnitBase, list[float]]] = {
     ("teff", "K"): (u.K, [250.0, 5772.0, 45000.0]),
     ("teff", "dex(K)"): (u.dex(u.K), [2.4, 3.7613, 4.65]),
+    ("teff", "kK"): (u.kK, [0.25, 5.772, 45.0]),
     ("logg", "dex(cm/s2)"): (u.dex(u.cm / u.s**2), [-0.5, 4.438, 8.6]),
     ("luminosity", "Lsun"): (u.solLum, [1e-5, 1.0, 1e6]),
     ("luminosity", "dex(Lsun)"): (u.dex(u.solLum), [-5.0, 0.0, 6.0]),

@@ -15,6 +15,7 @@ from catcheck.checks import (
     spectral_type_teff,
     stefan_boltzmann,
     surface_gravity,
+    unit_blunders,
 )
 from catcheck.checks.base import Check
 
@@ -40,5 +41,6 @@ CHECKS: dict[str, Check] = {
         evolution.BLUE_STRAGGLER,
         phase_envelope.CHECK,
         cluster_turnoff.CHECK,
+        *unit_blunders.CHECKS,
     )
 }

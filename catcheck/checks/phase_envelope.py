@@ -136,12 +136,12 @@ def evaluate(batch: StarBatch, params: Params) -> Outcome:
         phases = [PHASE_CODES[c] for c in batch.phase[rows].tolist()]
         which = result.worst[rows].tolist()
         return [
-            f"{phase} star at Teff {10 ** t:.0f} K has {names[k]} = {o:.2f}, "
+            f"{phase} star at Teff {t:.0f} K has {names[k]} = {o:.2f}, "
             f"{'above' if o > e else 'below'} the {phase} envelope's {e:.2f} near that "
             f"Teff (with {pad:g} dex margin): {d:.1f} sigma"
             for phase, k, (t, o, e, d) in zip(
-                phases, which, at_rows(rows, log_teff, result.observed, result.expected,
-                                       deviation), strict=True)
+                phases, which, at_rows(rows, batch.values["teff"], result.observed,
+                                       result.expected, deviation), strict=True)
         ]
 
     return Outcome(failed, describe, result.observed, result.expected, deviation, applies,

@@ -70,6 +70,7 @@ class RangeSchema:
         z = excess_sigma(values[candidates], sigma, low, high)
         if low > 0:  # zero or negative where only positive values exist: no error excuses it
             z[values[candidates] <= 0] = np.inf
+        z[np.isinf(values[candidates])] = np.inf  # even with an infinite error (inf/inf)
         failing = candidates
         if len(candidates):
             result = self.checks[rule.id](pd.Series(z, index=candidates))

@@ -1,0 +1,161 @@
+"""The visual report: report.html with its HR and Kiel diagrams, self-contained and atomic.
+
+The screenshot test opens the page in headless Chromium (Debian package ``chromium``;
+.ci/run installs it) and is skipped where Chromium is absent.
+"""
+
+from __future__ import annotations
+
+import base64
+import json
+import re
+import shutil
+import subprocess
+from pathlib import Path
+
+import numpy as np
+import pytest
+from factory import sun_like, write_catalogue
+
+import catcheck
+from catcheck import html_report
+from catcheck.demo import write_demo
+from catcheck.diagrams import HR_DIAGRAM, KIEL_DIAGRAM, DensityGrid, _window
+
+pytest.importorskip("matplotlib")
+
+PNG_SIGNATURE = b"\x89PNG\r\n\x1a\n"
+
+
+@pytest.fixture(scope="module")
+def demo(tmp_path_factory) -> tuple[Path, Path]:
+    """A small demo catalogue checked once with the default packs; the report directory."""
+    root = tmp_path_factory.mktemp("demo")
+    files = write_demo(root, rows=4000, seed=5)
+    out = root / "report"
+    catcheck.check(files.catalogue, files.profile, out=out)
+    return root, out
+
+
+def test_report_html_is_self_contained_with_both_figures_and_the_rule_table(demo) -> None:
+    _, out = demo
+    page = (out / "report.html").read_text(encoding="utf-8")
+    assert page.startswith("<!DOCTYPE html>")
+    # nothing fetched from elsewhere: every src is inline data, no link to a stylesheet
+    sources = re.findall(r'\b(?:src|href)\s*=\s*"([^"]*)"', page)
+    assert sources and all(s.startswith("data:image/png;base64,") for s in sources)
+    assert "http://" not in page and "https://" not in page and "<link" not in page
+    assert "@import" not in page and "url(" not in page
+    # both figures, embedded and beside the page, byte for byte
+    for spec in (HR_DIAGRAM, KIEL_DIAGRAM):
+        png = (out / spec.file).read_bytes()
+        assert png.startswith(PNG_SIGNATURE)
+        assert base64.b64encode(png).decode("ascii") in page
+        assert f'alt="{spec.title}"' in page
+    # the per-rule table: every rule of the run with its counts
+    summary = json.loads((out / "summary.json").read_text())
+    table = page[page.index('<table class="rules">'):]
+    for rule in summary["rules"]:
+        assert f"<code>{rule['id']}</code>" in table
+    flagged = max(summary["rules"], key=lambda r: r["flagged"])
+    assert f'{flagged["flagged"]:,}' in table
+    assert "Worst flags by rule" in page
+    assert summary["visual_report"] == {"file": "report.html",
+                                        "figures": ["hr_diagram.png", "kiel_diagram.png"]}
+
+
+def test_worst_examples_carry_the_largest_deviations(demo) -> None:
+    _, out = demo
+    import pandas as pd
+
+    flags = pd.read_parquet(out / "flags.parquet")
+    page = (out / "report.html").read_text(encoding="utf-8")
+    sb = flags[flags["rule"] == "stefan-boltzmann"].sort_values(
+        ["deviation", "row"], ascending=[False, True])
+    worst = sb.iloc[0]
+    section = page[page.index("Worst flags by rule"):]
+    assert f"{worst['deviation']:.1f}&sigma;" in section
+    assert html_report._e(worst["message"]) in section
+
+
+def test_same_run_same_bytes(demo, tmp_path) -> None:
+    root, out = demo
+    again = tmp_path / "again"
+    catcheck.check(root / "catalogue.parquet", root / "profile.toml", out=again,
+                   batch_rows=1500)  # other batches: the sampled points must not change
+    for name in ("report.html", "hr_diagram.png", "kiel_diagram.png"):
+        assert (again / name).read_bytes() == (out / name).read_bytes(), name
+
+
+def test_worker_processes_draw_the_same_page(tmp_path) -> None:
+    """Diagrams gathered in forked workers, piece by piece, merge to the same figures."""
+    files = write_demo(tmp_path, rows=4000, seed=5, chunk_rows=900)  # 5 row groups
+    one, two = tmp_path / "one", tmp_path / "two"
+    catcheck.check(files.catalogue, files.profile, out=one, batch_rows=1000)
+    catcheck.check(files.catalogue, files.profile, out=two, batch_rows=1000, workers=2)
+    for name in ("hr_diagram.png", "kiel_diagram.png"):
+        assert (one / name).read_bytes() == (two / name).read_bytes(), name
+
+
+def test_without_matplotlib_the_run_notes_why_and_leaves_no_old_page(demo, tmp_path,
+                                                                   monkeypatch) -> None:
+    root, out = demo
+    target = tmp_path / "report"
+    shutil.copytree(out, target)  # an older run's page and figures are there
+    monkeypatch.setattr(html_report, "plotting_available", lambda: False)
+    result = catcheck.check(root / "catalogue.parquet", root / "profile.toml", out=target)
+    assert result.summary["visual_report"] == {"file": None,
+                                               "note": html_report.NO_MATPLOTLIB}
+    assert not (target / "report.html").exists() and not (target / "hr_diagram.png").exists()
+    assert (target / "report.md").exists()
+
+
+def test_a_profile_without_log_g_draws_the_hr_diagram_only(tmp_path) -> None:
+    path = write_catalogue(tmp_path, sun_like(500))
+    result = catcheck.check(path, tmp_path / "profile.toml", out=tmp_path / "out")
+    assert result.summary["visual_report"]["figures"] == ["hr_diagram.png"]
+    assert "no Kiel diagram" in result.summary["visual_report"]["note"]
+    page = (tmp_path / "out" / "report.html").read_text(encoding="utf-8")
+    assert "no Kiel diagram: the profile maps no Teff or no log g" in page
+    assert not (tmp_path / "out" / "kiel_diagram.png").exists()
+
+
+def test_density_grid_counts_every_star_once() -> None:
+    grid = DensityGrid(HR_DIAGRAM)
+    rng = np.random.default_rng(1)
+    x, y = rng.uniform(3.4, 4.4, 10_000), rng.uniform(-2, 4, 10_000)
+    x[:5] = 9.0  # off the grid
+    y[5:8] = np.nan  # not a star of this diagram
+    grid.add(x[:6000], y[:6000])
+    grid.add(x[6000:], y[6000:])
+    assert grid.counts.sum() == grid.placed == 10_000 - 8
+    assert grid.off_grid == 5
+    reference, _, _ = np.histogram2d(
+        x[8:], y[8:], bins=[HR_DIAGRAM.x.bins, HR_DIAGRAM.y.bins],
+        range=[[HR_DIAGRAM.x.low, HR_DIAGRAM.x.high], [HR_DIAGRAM.y.low, HR_DIAGRAM.y.high]])
+    assert np.array_equal(grid.image(), reference.astype(np.int64))
+
+
+def test_axis_window_covers_the_stars_not_the_outliers() -> None:
+    counts = np.zeros(HR_DIAGRAM.y.bins, dtype=np.int64)
+    counts[300:400] = 1000  # log L -0.0 .. 2.0
+    counts[0] = 1  # one outlier at log L -6
+    lo, hi = _window(counts, HR_DIAGRAM.y)
+    assert lo < 300 and hi > 400 and lo > 100
+
+
+@pytest.mark.skipif(shutil.which("chromium") is None,
+                    reason="Chromium is not installed (Debian package chromium)")
+def test_page_renders_in_headless_chromium(demo, tmp_path) -> None:
+    _, out = demo
+    shot = tmp_path / "page.png"
+    done = subprocess.run(
+        ["chromium", "--headless", "--no-sandbox", "--disable-gpu", "--hide-scrollbars",
+         "--window-size=1400,1800", f"--screenshot={shot}",
+         (out / "report.html").resolve().as_uri()],
+        capture_output=True, timeout=120, check=False)
+    assert done.returncode == 0, done.stderr.decode(errors="replace")[-2000:]
+    png = shot.read_bytes()
+    assert png.startswith(PNG_SIGNATURE)
+    # a blank page compresses to a few kB; the rendered report with its figures does not
+    assert len(png) > 100_000
