@@ -47,7 +47,7 @@ class DuplicateIds:
         self.hashes = np.empty(0, dtype=np.uint64)  # sorted, distinct
         self.counts = np.empty(0, dtype=np.int64)  # rows of each hash
         self.rows_without_id = 0
-        self.examples: dict[str, np.uint64] = {}  # the first repeated ids found
+        self.examples: dict[str, np.uint64] = {}  # the first repeated ids, in row order
 
     def add(self, ids: pa.Array) -> None:
         """Count one batch of ids (any Arrow type; compared as text, nulls counted apart)."""
@@ -58,12 +58,15 @@ class DuplicateIds:
         hashes = pd.util.hash_array(text, categorize=False)
         keep = self._kept(hashes)
         hashes, text = hashes[keep], text[keep]
-        batch, first, counts = np.unique(hashes, return_index=True, return_counts=True)
+        batch, counts = np.unique(hashes, return_counts=True)
         at = np.searchsorted(self.hashes, batch)
         known = at < len(self.hashes)
         known[known] = self.hashes[at[known]] == batch[known]
-        self._note_examples(text[first[known | (counts > 1)]],
-                            batch[known | (counts > 1)])
+        repeated = known | (counts > 1)
+        if len(self.examples) < EXAMPLES and repeated.any():
+            rows = np.flatnonzero(np.isin(hashes, batch[repeated]))
+            first = rows[np.sort(np.unique(hashes[rows], return_index=True)[1])][:EXAMPLES]
+            self._note_examples(text[first], hashes[first])  # each id's first row, in order
         self.counts[at[known]] += counts[known]
         fresh = ~known
         self.hashes = np.insert(self.hashes, at[fresh], batch[fresh])

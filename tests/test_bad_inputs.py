@@ -35,6 +35,7 @@ from catcheck.errors import (
     CatalogueError,
     ProfileError,
 )
+from catcheck.identifiers import DuplicateIds
 
 
 @dataclass
@@ -457,3 +458,25 @@ def test_randomly_damaged_files_end_in_a_report_or_a_catalogue_error(tmp_path: P
             outcomes["error"] += 1
     assert min(outcomes.values()) > 0, outcomes  # both kinds of damage were exercised
     assert not list((tmp_path / "report").glob(".catcheck-staging-*"))
+
+
+def test_duplicate_ids_compare_ids_as_text_and_count_nulls_apart() -> None:
+    counter = DuplicateIds()
+    counter.add(pa.array(["b", "a", "b", None, "é", "é"]))
+    counter.add(pa.array([7, 8]))
+    counter.add(pa.array(["7", "c", None]))
+    assert counter.summary() == {"repeated_ids": 3, "rows_with_repeated_id": 6,
+                                 "rows_without_id": 2, "examples": {"b": 2, "é": 2, "7": 2},
+                                 "exact": True}
+
+
+def test_duplicate_ids_beyond_the_memory_bound_are_estimated_from_a_hash_sample() -> None:
+    """4,000 distinct ids, 1,000 of them twice, with room for 500 hashes: about right."""
+    counter = DuplicateIds(max_tracked=500)
+    for start in range(0, 4000, 1000):
+        block = [f"LOCS-{i}" for i in range(start, start + 1000)]
+        counter.add(pa.array(block + block[:250]))
+    summary = counter.summary()
+    assert not summary["exact"] and len(counter.hashes) <= 500
+    assert 700 <= summary["repeated_ids"] <= 1300  # 1,000 expected; sample of ~1/8 to 1/16
+    assert summary["rows_with_repeated_id"] == 2 * summary["repeated_ids"]
