@@ -1,7 +1,7 @@
 """Benchmark: catcheck against a plain pyarrow scan of the same columns.
 
 Writes demo catalogues (``catcheck demo`` data) of the requested sizes, then for each size
-times, each case in its own fresh Python process so that peak memory (RSS) is its own:
+times, each case in its own fresh Python process so that its peak memory is its own:
 
 * ``scan``: a plain pyarrow read of the columns the profile needs, batch by batch;
 * ``core``: ``catcheck.check`` with the core pack, writing a full report;
@@ -12,9 +12,12 @@ times, each case in its own fresh Python process so that peak memory (RSS) is it
   the clean/flagged split (``--annotate --split``).
 
 It prints the seconds, the ratio of each case to the scan of the same size in the same
-benchmark session, and the peak RSS: the case's process plus its worker processes,
-sampled every 20 ms and summed (pages a forked worker shares with its parent are counted
-twice, so this is an upper bound).  Usage (after ``pip install .``)::
+benchmark session, and the peak memory: the proportional set size (PSS, from
+``/proc/PID/smaps_rollup``) of the case's process plus its worker processes, sampled every
+20 ms and summed.  PSS counts a page shared by n processes as 1/n in each, so forked
+workers (which share the parent's pages until they write to them) are not counted twice;
+for a single process it is its RSS less its share of shared libraries.  Usage (after
+``pip install .``)::
 
     python benchmarks/run.py --rows 1000000 10000000 [--cases scan core all] [--data DIR]
 """
@@ -34,7 +37,7 @@ from pathlib import Path
 
 
 class PeakMemory:
-    """Samples the RSS of this process and its child processes until stopped."""
+    """Samples the PSS of this process and its child processes until stopped."""
 
     def __init__(self, interval: float = 0.02) -> None:
         self.interval = interval
@@ -57,7 +60,7 @@ class PeakMemory:
 
     def _sample(self) -> None:
         pids = [os.getpid(), *_children(os.getpid())]
-        self.peak_kb = max(self.peak_kb, sum(_rss_kb(pid) for pid in pids))
+        self.peak_kb = max(self.peak_kb, sum(_pss_kb(pid) for pid in pids))
 
 
 def _children(pid: int) -> list[int]:
@@ -68,11 +71,11 @@ def _children(pid: int) -> list[int]:
         return []
 
 
-def _rss_kb(pid: int) -> int:
+def _pss_kb(pid: int) -> int:
     try:
-        with open(f"/proc/{pid}/status") as status:
-            for line in status:
-                if line.startswith("VmRSS:"):
+        with open(f"/proc/{pid}/smaps_rollup") as rollup:
+            for line in rollup:
+                if line.startswith("Pss:"):
                     return int(line.split()[1])
     except OSError:
         pass
@@ -122,7 +125,7 @@ def child(args: argparse.Namespace) -> None:
         else:
             case_check(args.catalogue, args.profile, args.batch_rows, args.child, args.out)
         seconds = time.perf_counter() - started
-    print(json.dumps({"seconds": seconds, "peak_rss_mb": memory.peak_kb / 1024.0}))
+    print(json.dumps({"seconds": seconds, "peak_mb": memory.peak_kb / 1024.0}))
 
 
 def run_case(case: str, catalogue: Path, profile: Path, args: argparse.Namespace,
@@ -157,9 +160,9 @@ def main() -> None:
     from catcheck.demo import write_demo
 
     data = args.data or Path(tempfile.mkdtemp(prefix="catcheck-bench-"))
-    print(f"batch rows: {args.batch_rows:,}; best of {args.repeat}; peak RSS per case "
+    print(f"batch rows: {args.batch_rows:,}; best of {args.repeat}; peak memory (PSS) per case "
           "(each case in its own process, worker processes added)")
-    print(f"{'rows':>12} {'case':<8} {'seconds':>9} {'ratio':>7} {'peak RSS MB':>12}")
+    print(f"{'rows':>12} {'case':<8} {'seconds':>9} {'ratio':>7} {'peak PSS MB':>12}")
     for rows in args.rows:
         folder = data / f"demo-{rows}"
         if not (folder / "catalogue.parquet").exists():
@@ -174,7 +177,7 @@ def main() -> None:
         scan = results["scan"]["seconds"]
         for case, result in results.items():
             print(f"{rows:>12,} {case:<8} {result['seconds']:>9.2f} "
-                  f"{result['seconds'] / scan:>6.2f}x {result['peak_rss_mb']:>12.0f}")
+                  f"{result['seconds'] / scan:>6.2f}x {result['peak_mb']:>12.0f}")
 
 
 if __name__ == "__main__":

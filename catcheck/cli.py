@@ -75,7 +75,8 @@ def cli() -> None:
 @click.option("--batch-rows", default=262_144, show_default=True,
               type=click.IntRange(1_000, 50_000_000), help="Rows per record batch.")
 @click.option("--workers", default=1, show_default=True, type=click.IntRange(1, 64),
-              help="Batches checked at once (threads).")
+              help="Worker processes, each checking whole Parquet row groups (other "
+                   "inputs: threads over batches). Memory grows with each worker.")
 @click.option("--engine", default="local", show_default=True,
               type=click.Choice(["local", "dask"]),
               help="Where the checks run: this process, or a dask cluster (needs "

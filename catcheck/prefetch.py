@@ -14,7 +14,7 @@ import queue
 import threading
 from collections import deque
 from collections.abc import Callable, Iterable, Iterator
-from concurrent.futures import Future, ProcessPoolExecutor, ThreadPoolExecutor
+from concurrent.futures import Executor, Future, ProcessPoolExecutor, ThreadPoolExecutor
 from typing import TypeVar
 
 T = TypeVar("T")
@@ -83,18 +83,24 @@ def ordered_map(function: Callable[[T], R], items: Iterable[T], workers: int = 1
     if workers <= 1:
         yield from map(function, items)
         return
-    pending: deque[Future[R]] = deque()
     with ThreadPoolExecutor(max_workers=workers, thread_name_prefix="catcheck-check") as pool:
-        try:
-            for item in items:
-                pending.append(pool.submit(function, item))
-                if len(pending) > workers:
-                    yield pending.popleft().result()
-            while pending:
+        yield from _in_order(pool, function, items, workers + 1)
+
+
+def _in_order(pool: Executor, function: Callable[[T], R], items: Iterable[T], window: int
+              ) -> Iterator[R]:
+    """Results of ``function`` over ``items`` from ``pool``, in order, ``window`` in flight."""
+    pending: deque[Future[R]] = deque()
+    try:
+        for item in items:
+            pending.append(pool.submit(function, item))
+            if len(pending) >= window:
                 yield pending.popleft().result()
-        finally:
-            for future in pending:
-                future.cancel()
+        while pending:
+            yield pending.popleft().result()
+    finally:
+        for future in pending:
+            future.cancel()
 
 
 _FORKED_FUNCTION: Callable[[int], object] | None = None
@@ -117,19 +123,9 @@ def forked_map(function: Callable[[int], R], count: int, workers: int) -> Iterat
     global _FORKED_FUNCTION
     _FORKED_FUNCTION = function
     context = multiprocessing.get_context("fork")
-    pending: deque[Future[R]] = deque()
     try:
         with ProcessPoolExecutor(max_workers=workers, mp_context=context) as pool:
-            try:
-                for index in range(count):
-                    pending.append(pool.submit(_call_forked, index))
-                    if len(pending) >= 2 * workers:
-                        yield pending.popleft().result()
-                while pending:
-                    yield pending.popleft().result()
-            finally:
-                for future in pending:
-                    future.cancel()
+            yield from _in_order(pool, _call_forked, range(count), 2 * workers)
     finally:
         _FORKED_FUNCTION = None
 

@@ -76,3 +76,25 @@ def visual_report_files(*figures: str) -> list[str]:
     """report.html and the given figures, which a report holds when matplotlib (the plot
     extra) is installed; nothing otherwise."""
     return [*figures, "report.html"] if importlib.util.find_spec("matplotlib") else []
+
+
+def forbid_running_text(monkeypatch) -> None:
+    """Make ``eval``/``exec`` fail and ``compile`` parse only (``ast.PyCF_ONLY_AST``).
+
+    Code under test that turned text into running code would raise AssertionError.
+    """
+    import ast
+    import builtins
+
+    real_compile = builtins.compile
+
+    def only_ast(source, filename, mode, flags=0, *args, **kwargs):
+        assert flags & ast.PyCF_ONLY_AST, "compile() used for more than parsing"
+        return real_compile(source, filename, mode, flags, *args, **kwargs)
+
+    def forbidden(*args, **kwargs):
+        raise AssertionError("eval or exec called")
+
+    monkeypatch.setattr(builtins, "compile", only_ast)
+    monkeypatch.setattr(builtins, "eval", forbidden)
+    monkeypatch.setattr(builtins, "exec", forbidden)

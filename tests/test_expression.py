@@ -16,6 +16,7 @@ from pathlib import Path
 
 import numpy as np
 import pytest
+from factory import forbid_running_text
 
 import catcheck.expression as expression
 from catcheck.expression import (
@@ -396,18 +397,7 @@ def test_the_canary_would_catch_code_that_runs(tmp_path: Path) -> None:
 def test_compiling_and_evaluating_never_calls_eval_exec_or_a_bytecode_compiler(
     monkeypatch,
 ) -> None:
-    real_compile = builtins.compile
-
-    def only_ast(source, filename, mode, flags=0, *args, **kwargs):
-        assert flags & ast.PyCF_ONLY_AST, "compile() used for something other than parsing"
-        return real_compile(source, filename, mode, flags, *args, **kwargs)
-
-    def forbidden(*args, **kwargs):
-        raise AssertionError("eval/exec called")
-
-    monkeypatch.setattr(builtins, "compile", only_ast)
-    monkeypatch.setattr(builtins, "eval", forbidden)
-    monkeypatch.setattr(builtins, "exec", forbidden)
+    forbid_running_text(monkeypatch)
     expr = compile_expression("3 < logg < 5 and phase in ('MS',) or sqrt(teff) > 75", NAMES)
     assert expr.evaluate(ENV).tolist() == [False, True, False, False]
     message = compile_message("{phase} at {teff:.0f} K", NAMES)

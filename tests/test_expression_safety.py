@@ -20,7 +20,7 @@ from pathlib import Path
 
 import numpy as np
 import pytest
-from factory import sun_like, write_catalogue
+from factory import forbid_running_text, sun_like, write_catalogue
 
 import catcheck
 from catcheck.cli import main
@@ -132,18 +132,7 @@ def test_a_valid_expression_pack_loads_and_runs_without_eval_exec_or_bytecode(
     pack = tmp_path / "rules.toml"
     pack.write_text(pack_text("require", "3 < log10(teff) < 4.5 and phase in ('MS', 'RGB')"),
                     encoding="utf-8")
-    real_compile = builtins.compile
-
-    def only_ast(source, filename, mode, flags=0, *args, **kwargs):
-        assert flags & ast.PyCF_ONLY_AST, "compile() used for more than parsing"
-        return real_compile(source, filename, mode, flags, *args, **kwargs)
-
-    def forbidden(*args, **kwargs):
-        raise AssertionError("eval or exec called")
-
-    monkeypatch.setattr(builtins, "compile", only_ast)
-    monkeypatch.setattr(builtins, "eval", forbidden)
-    monkeypatch.setattr(builtins, "exec", forbidden)
+    forbid_running_text(monkeypatch)
     (rule,) = load_rules([pack])
     monkeypatch.undo()
     frame = sun_like(12)
