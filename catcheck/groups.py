@@ -5,10 +5,15 @@ group rule asks for, an exact member count and a bounded sample of values; pass 
 each row against its group's robust centre (median) and spread (1.4826 x the median
 absolute deviation).  Memory grows with the number of groups, not of rows.
 
-The sample of a group is its ``SAMPLE_SIZE`` members with the smallest hash of their row
-number (a bottom-k sample): it does not depend on batch size, file split or worker count,
-and it is exact for groups no larger than the sample (the median of a 512-member sample
-of a normal distribution is within 0.055 sigma of the group's, one standard error).
+The sample of a group is its k members with the smallest hash of their row number (a
+bottom-k sample): it does not depend on batch size, file split or worker count, and it is
+exact for groups no larger than k.  k is ``SAMPLE_SIZE`` (512) while the groups share
+``SAMPLE_BUDGET`` entries per variable, and shrinks as more groups have members, down to
+``MIN_SAMPLE_SIZE`` (64): memory stays bounded for catalogues of very many clusters.
+Bottom-k samples nest (the k' smallest hashes are among the k smallest), so the final
+sample depends only on how many groups the whole catalogue has.  One standard error of
+the median of a k-member sample of a normal distribution is 1.2533 sigma / sqrt(k): 0.055
+sigma for k = 512, 0.157 sigma for k = 64.
 """
 
 from __future__ import annotations
@@ -23,8 +28,11 @@ import pyarrow as pa
 import pyarrow.compute as pc
 
 SAMPLE_SIZE = 512
+#: sample entries per variable shared by all groups (12 bytes each: about 50 MB)
+SAMPLE_BUDGET = 1 << 22
+MIN_SAMPLE_SIZE = 64
 #: pending sample entries (per variable) that trigger a merge
-_MERGE_AT = 1 << 16
+_MERGE_AT = 1 << 20
 #: 1.4826 x MAD estimates the standard deviation of a normal distribution
 MAD_TO_SIGMA = 1.4826
 NO_GROUP = -1
@@ -98,6 +106,12 @@ class GroupSummary:
                 np.where(inside, self.spread[safe], np.nan))
 
 
+def sample_size(groups: int, largest: int = SAMPLE_SIZE) -> int:
+    """Members sampled per group when ``groups`` groups have members (see the module)."""
+    shared = SAMPLE_BUDGET // max(groups, 1)
+    return min(largest, max(MIN_SAMPLE_SIZE, shared))
+
+
 class _BottomSample:
     """Per group, the values of the ``size`` members with the smallest row hash.
 
@@ -106,10 +120,12 @@ class _BottomSample:
 
     New values wait in a pending list and are merged (sorted, cut to ``size`` per group)
     only when the pending part outgrows the kept part, so the work stays O(n log n) over a
-    run and memory stays below about groups x size x 2 entries.
+    run and memory stays below about groups x size x 2 entries.  The kept entries are
+    sorted by (group, hash).
     """
 
     def __init__(self, size: int) -> None:
+        self.largest = size  # the size while few groups share the budget
         self.size = size
         # compact types: the sample can hold groups x size entries (12 bytes each)
         self.codes = np.empty(0, dtype=np.int32)
@@ -155,27 +171,33 @@ class _BottomSample:
         if self.pending_size > max(_MERGE_AT, len(self.codes)):
             self._merge()
 
-    def _merge(self) -> None:
-        if not self.pending:
+    def _merge(self, final: bool = False) -> None:
+        """Fold the pending entries in and cut every group to its ``size`` smallest hashes.
+
+        The kept entries stay sorted by (group, hash), so a merge sorts only the pending
+        part and then merges two sorted runs (a stable sort finds them: linear time).
+        """
+        size = sample_size(int(np.count_nonzero(self.counts)), self.largest)
+        if not self.pending and not (final and size < self.size):
             return
-        codes = np.concatenate([self.codes, *(p[0] for p in self.pending)])
-        hashes = np.concatenate([self.hashes, *(p[1] for p in self.pending)])
-        values = np.concatenate([self.values, *(p[2] for p in self.pending)])
-        self.pending, self.pending_size = [], 0
-        crowded = self.counts[codes] > self.size  # only these groups need cutting
-        if crowded.any():
-            small = ~crowded
-            order = np.lexsort((hashes[crowded], codes[crowded]))
-            big_codes = codes[crowded][order]
-            big_hashes, big_values = hashes[crowded][order], values[crowded][order]
-            rank = _rank_within(big_codes)
-            kept = rank < self.size
-            full = np.flatnonzero(rank == self.size - 1)
-            self.cutoff[big_codes[full]] = big_hashes[full]
-            codes = np.concatenate([codes[small], big_codes[kept]])
-            hashes = np.concatenate([hashes[small], big_hashes[kept]])
-            values = np.concatenate([values[small], big_values[kept]])
-        self.codes, self.hashes, self.values = codes, hashes, values
+        self.size = size  # never grows: groups only gain members
+        codes, hashes, values = self.codes, self.hashes, self.values
+        if self.pending:
+            new_codes, new_hashes, new_values = (np.concatenate(part) for part in
+                                                 zip(*self.pending, strict=True))
+            self.pending, self.pending_size = [], 0
+            new = np.argsort(_sort_key(new_codes, new_hashes), kind="stable")
+            codes = np.concatenate([codes, new_codes[new]])
+            hashes = np.concatenate([hashes, new_hashes[new]])
+            values = np.concatenate([values, new_values[new]])
+            # equal keys keep the kept (earlier) rows first: row order, as documented
+            order = np.argsort(_sort_key(codes, hashes), kind="stable")
+            codes, hashes, values = codes[order], hashes[order], values[order]
+        rank = _rank_within(codes)
+        full = np.flatnonzero(rank == size - 1)
+        self.cutoff[codes[full]] = hashes[full]
+        kept = rank < size
+        self.codes, self.hashes, self.values = codes[kept], hashes[kept], values[kept]
 
     def _grow(self, groups: int) -> None:
         extra = groups - len(self.counts)
@@ -185,12 +207,17 @@ class _BottomSample:
                 [self.cutoff, np.full(extra, np.iinfo(np.uint32).max, dtype=np.uint32)])
 
     def summary(self, groups: int) -> GroupSummary:
-        self._merge()
+        self._merge(final=True)
         self._grow(groups)
         median = _group_median(self.codes, self.values, groups)
         deviation = np.abs(self.values - median[self.codes].astype(np.float32))
         spread = MAD_TO_SIGMA * _group_median(self.codes, deviation, groups)
         return GroupSummary(self.counts.copy(), median, spread)
+
+
+def _sort_key(codes: np.ndarray, hashes: np.ndarray) -> np.ndarray:
+    """One uint64 per entry ordering by group code, then hash (codes are >= 0)."""
+    return (codes.astype(np.uint64) << np.uint64(32)) | hashes.astype(np.uint64)
 
 
 def _rank_within(sorted_codes: np.ndarray) -> np.ndarray:

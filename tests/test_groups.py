@@ -74,6 +74,39 @@ def test_bottom_sample_of_large_group_is_bounded_and_independent_of_batching() -
     assert summaries[0].spread[0] == pytest.approx(1.0, abs=0.2)
 
 
+def test_many_groups_share_the_sample_budget(monkeypatch) -> None:
+    """With many groups each keeps its k smallest row hashes, k from the final group count,
+    whatever the batching; k shrinks to the budget but never below the floor."""
+    import catcheck.groups as groups
+
+    monkeypatch.setattr(groups, "SAMPLE_BUDGET", 2_000)
+    monkeypatch.setattr(groups, "MIN_SAMPLE_SIZE", 8)
+    rng = np.random.default_rng(3)
+    n, count = 30_000, 100  # 100 groups of ~300: k = 2000 // 100 = 20
+    codes = rng.integers(0, count, n)
+    values = rng.normal(codes.astype(float), 1.0)
+    rows = np.arange(n)
+    assert groups.sample_size(count) == 20 and groups.sample_size(10_000) == 8
+    medians = []
+    for pieces in (1, 9, 61):
+        sample = _BottomSample(512)
+        for chunk in np.array_split(rows, pieces):
+            sample.add(codes[chunk], row_hash(chunk), values[chunk])
+        summary = sample.summary(count)
+        assert np.bincount(sample.codes, minlength=count).max() == 20
+        medians.append(summary.median)
+    np.testing.assert_array_equal(medians[0], medians[1])
+    np.testing.assert_array_equal(medians[0], medians[2])
+    # the same as the median of each group's 20 members of smallest (top 32 bits of) hash
+    top = (row_hash(rows) >> np.uint64(32)).astype(np.uint32)
+    order = np.lexsort((top, codes))
+    first = np.r_[True, codes[order][1:] != codes[order][:-1]]
+    rank = np.arange(n) - np.maximum.accumulate(np.where(first, np.arange(n), 0))
+    kept = order[rank < 20]
+    expected = pd.Series(values[kept].astype(np.float32)).groupby(codes[kept]).median()
+    np.testing.assert_allclose(medians[0], expected.to_numpy(), rtol=1e-6)
+
+
 def test_group_keys_compare_as_text() -> None:
     keys = GroupKeys()
     assert keys.register([17, None, "17", "C-2"]).tolist() == [0, -1, 0, 1]
