@@ -13,19 +13,26 @@ Three kinds of evidence are weighed for every column:
    that :mod:`catcheck.formats` keeps in the Arrow field metadata.
 3. **The values** of the first rows (a sample, :data:`SAMPLE_ROWS` by default): which of
    the quantity's units they fit (:data:`VALUE_WINDOWS`: log10 Teff 3.15-5.4 is dex(K),
-   1,500-250,000 is K, 1.5-250 is kK ...); when several fit, the shape of the values
+   1,500-250,000 is K, 1.5-250 is kK ...; all but 1% of the values on either side, none
+   in a sample under 100); when several fit, the shape of the values
    (a linear luminosity or radius is skewed over orders of magnitude, its logarithm is not)
    and, where the columns are there, whether Stefan-Boltzmann and g = GM/R^2 hold with
    one choice of units and not the other.  An identifier must be unique in the sample and
    a group must repeat; a phase column's labels are mapped to phase codes by common names
    (:data:`PHASE_WORDS`), supergiants by their Teff; a spectral-type column must hold MK
-   types.
+   types.  A column whose name or UCD clearly says the quantity is mapped even when some
+   values fit no unit: to the unit most of them fit, at lower confidence, the evidence
+   counting and quoting the values that do not fit (``9 of 10 values fit K; 1 does not
+   (3.76: a log10 value?)``), so that the range and unit-blunder rules flag their rows.
+   A column is left out only when no unit fits more than half of its values, and the
+   proposal says why.
 
 Nothing is guessed silently.  Each mapping carries its evidence and a confidence:
 *high* (the name or UCD says which quantity, and the declared unit, the name or the
 values leave one unit), *medium* (one of the two rests on a preference among several
-that fit) or *low* (weak evidence, or the values contradict the declared unit: check by
-hand).  Columns that compete for one quantity are listed with the reason the loser lost;
+that fit, or up to a tenth of the values fit no unit) or *low* (weak evidence, more of
+the values fit no unit, or the values contradict the declared unit: check by hand).
+Columns that compete for one quantity are listed with the reason the loser lost;
 quantities, columns and phase labels that could not be mapped are listed too.
 
 :func:`infer_profile` is pure (a schema and a sample in, a :class:`ProfileProposal` out);
@@ -39,6 +46,7 @@ a column is plausible.
 
 from __future__ import annotations
 
+import dataclasses
 import math
 import os
 import re
@@ -386,9 +394,10 @@ def ucd_target(ucd: str | None) -> tuple[str | None, bool]:
 # Values
 # =========================================================================================
 
-#: per quantity and unit, the window the 1st to 99th percentile of the values must lie
-#: in for the values to fit that unit (common practice, wide on purpose: stars from brown
-#: dwarfs to O stars and white dwarfs; 1% of rows may lie outside, as faults do)
+#: per quantity and unit, the window a column's values must lie in for them to fit that
+#: unit (common practice, wide on purpose: stars from brown dwarfs to O stars and white
+#: dwarfs); up to :data:`OUTLIER_SHARE` of the values may lie outside on each side, as
+#: faults do
 VALUE_WINDOWS: dict[str, dict[str, tuple[float, float]]] = {
     "teff": {"K": (1_500.0, 250_000.0), "kK": (1.5, 250.0), "dex(K)": (3.15, 5.4)},
     "logg": {"dex(cm/s2)": (-1.5, 9.9)},
@@ -404,6 +413,20 @@ VALUE_WINDOWS: dict[str, dict[str, tuple[float, float]]] = {
     "distance": {"pc": (0.5, 1e6), "kpc": (5e-4, 1_000.0)},
 }
 VALUE_WINDOWS["initial_mass"] = VALUE_WINDOWS["mass"]
+#: share of a column's values that may lie below, and again above, a unit's window while
+#: the values still fit it cleanly (rounded down: in a sample under 100 values, none may)
+OUTLIER_SHARE = 0.01
+#: samples smaller than this are described by their full range, not by percentiles (which
+#: would be interpolated between values and name numbers the file does not hold)
+SMALL_SAMPLE = 100
+#: a column whose name or UCD clearly says the quantity is still mapped when no unit fits
+#: its values cleanly, if one unit fits more than this share of them (the range and
+#: unit-blunder rules then flag the rest); the mapping is medium confidence when at least
+#: :data:`MOSTLY_FIT_MEDIUM` of the values fit, low otherwise
+MOSTLY_FIT = 0.5
+MOSTLY_FIT_MEDIUM = 0.9
+#: values that do not fit the chosen unit quoted in the evidence, in row order
+ODD_VALUES_SHOWN = 3
 #: a linear quantity spread over orders of magnitude is skewed: (p99 - p50) / (p50 - p1)
 #: at least this much reads as linear rather than logarithmic
 LINEAR_SKEW = 3.0
@@ -414,31 +437,50 @@ RELATION_HOLDS_DEX = 0.2
 
 @dataclass(frozen=True)
 class ValueSummary:
-    """The 1st, 50th and 99th percentiles of a column's finite values in the sample."""
+    """A column's finite values in the sample: their 1st, 50th and 99th percentiles, their
+    full range, and the values themselves in row order (to count those in a window)."""
 
     count: int
     low: float
     median: float
     high: float
+    minimum: float
+    maximum: float
+    finite: FloatArray = dataclasses.field(compare=False, repr=False)
 
     @classmethod
     def of(cls, values: FloatArray) -> ValueSummary:
         finite = values[np.isfinite(values)]
         if finite.size == 0:
-            return cls(0, math.nan, math.nan, math.nan)
+            return cls(0, math.nan, math.nan, math.nan, math.nan, math.nan, finite)
         low, median, high = np.percentile(finite, [1.0, 50.0, 99.0])
-        return cls(int(finite.size), float(low), float(median), float(high))
+        return cls(int(finite.size), float(low), float(median), float(high),
+                   float(finite.min()), float(finite.max()), finite)
+
+    def inside(self, window: tuple[float, float]) -> NDArray[np.bool_]:
+        """Which values (in row order) lie in ``window``, bounds included."""
+        return (self.finite >= window[0]) & (self.finite <= window[1])
 
     def fits(self, window: tuple[float, float]) -> bool:
-        return window[0] <= self.low and self.high <= window[1]
+        """At most :data:`OUTLIER_SHARE` of the values below the window, and as many above."""
+        allowed = int(self.count * OUTLIER_SHARE)
+        below = int(np.count_nonzero(self.finite < window[0]))
+        above = int(np.count_nonzero(self.finite > window[1]))
+        return below <= allowed and above <= allowed
 
     @property
     def skew(self) -> float:
         return (self.high - self.median) / max(self.median - self.low, 1e-12)
 
     def describe(self) -> str:
-        return (f"values {_number(self.low)}..{_number(self.high)} "
-                f"(1st-99th percentile, median {_number(self.median)})")
+        """``values A..B (...)``: the full range of a small sample, else the 1st to 99th
+        percentile followed by the full range."""
+        full = f"{_number(self.minimum)}..{_number(self.maximum)}"
+        if self.count < SMALL_SAMPLE:
+            return (f"values {full} (full range of {self.count:,} "
+                    f"value{'' if self.count == 1 else 's'}, median {_number(self.median)})")
+        return (f"values {_number(self.low)}..{_number(self.high)} (1st-99th percentile, "
+                f"median {_number(self.median)}; full range {full})")
 
 
 def _number(value: float) -> str:
@@ -704,7 +746,7 @@ def _judge(fact: ColumnFacts, target: str, identity: int, evidence: list[str]
         return _judge_spectral(fact, identity, evidence)
     if fact.kind != "number":
         return _Rejection(target, fact.name, f"holds {fact.kind}, not numbers")
-    decision = decide_unit(target, fact)
+    decision = decide_unit(target, fact, clear_name=identity >= HIGH)
     if isinstance(decision, str):
         return _Rejection(target, fact.name, decision)
     unit, level, why, fitting = decision
@@ -777,10 +819,17 @@ def _unusable_reason(name: str) -> str | None:
 # --- units --------------------------------------------------------------------------------
 
 
-def decide_unit(quantity: str, fact: ColumnFacts
+def decide_unit(quantity: str, fact: ColumnFacts, clear_name: bool = False
                 ) -> tuple[str, int, str, tuple[str, ...]] | str:
     """The unit of a numeric column for ``quantity``: ``(unit, level, evidence, fitting)``,
     or the reason the column cannot be this quantity.
+
+    The values fit a unit cleanly when all but :data:`OUTLIER_SHARE` of them on either
+    side lie in its window.  When no unit fits cleanly and ``clear_name`` says the column's
+    name or UCD clearly names the quantity, the unit that more than :data:`MOSTLY_FIT` of
+    the values fit is taken at lower confidence, and the evidence counts and quotes the
+    values that do not fit (the range and unit-blunder rules flag their rows); only when no
+    unit fits most values is the column left out.
 
     ``fitting`` lists the units the values fit when the values alone chose among several
     (a relation between quantities may still settle the choice), else it is empty.
@@ -805,6 +854,8 @@ def decide_unit(quantity: str, fact: ColumnFacts
                   else "the canonical unit, a guess")
         return unit, LOW, f'no values in the sample; unit "{unit}" {source}', ()
     fitting = tuple(unit for unit in allowed if summary.fits(windows[unit]))
+    mostly = (_units_most_values_fit(quantity, summary, allowed)
+              if clear_name and not fitting else {})
     seen = summary.describe()
     for given, how in ((declared, f'declared unit "{fact.unit.text if fact.unit else ""}"'),
                        (hinted, f'the name "{fact.name}"')):
@@ -816,17 +867,113 @@ def decide_unit(quantity: str, fact: ColumnFacts
             unit, _, _ = _prefer(quantity, fitting, summary)
             return unit, LOW, (f"{how} says {given}, but {seen} fit {' or '.join(fitting)}: "
                                f"taken as {unit} (check: a unit mistake in the table?)"), ()
-        return f"{seen} fit no unit of {quantity} ({how} says {given})"
+        if given in mostly:
+            unit, level, why = _mostly(quantity, summary, allowed, mostly, given)
+            return unit, level, f"{how} says {given}; {seen}: {why}", ()
+        if mostly:
+            unit, _, why = _mostly(quantity, summary, allowed, mostly)
+            return unit, LOW, (f"{how} says {given}, but {seen}: {why}; taken as {unit} "
+                               "(check: a unit mistake in the table?)"), ()
+        return (f"{seen} fit no unit of {quantity} ({how} says {given}; "
+                f"{_why_no_unit(quantity, summary, allowed, clear_name)})")
     if declared_note:
         seen = f"{declared_note}; {seen}"
+    if mostly:
+        unit, level, why = _mostly(quantity, summary, allowed, mostly)
+        return unit, level, f"{seen}: {why}", ()
     if not fitting:
         if quantity == "logg" and summary.median > 100:
             return f"{seen} look like linear g in cm/s2; profiles take log g"
-        return f"{seen} fit no unit of {quantity}"
+        return (f"{seen} fit no unit of {quantity} "
+                f"({_why_no_unit(quantity, summary, allowed, clear_name)})")
     unit, level, why = _prefer(quantity, fitting, summary)
     if declared_note:  # the file says something else: never high
         level = min(level, MEDIUM)
     return unit, level, f"{seen}: {why}", fitting if len(fitting) > 1 else ()
+
+
+def _fit_counts(quantity: str, summary: ValueSummary, allowed: Sequence[str]
+                ) -> dict[str, int]:
+    """unit -> how many values lie in its window, the most first (ties in window order)."""
+    counts = {unit: int(np.count_nonzero(summary.inside(VALUE_WINDOWS[quantity][unit])))
+              for unit in allowed}
+    return dict(sorted(counts.items(), key=lambda item: -item[1]))
+
+
+def _units_most_values_fit(quantity: str, summary: ValueSummary, allowed: Sequence[str]
+                           ) -> dict[str, int]:
+    """unit -> values in its window, for the units more than :data:`MOSTLY_FIT` of the
+    values fit (the most first)."""
+    return {unit: count for unit, count in _fit_counts(quantity, summary, allowed).items()
+            if count > MOSTLY_FIT * summary.count}
+
+
+def _mostly(quantity: str, summary: ValueSummary, allowed: Sequence[str],
+            mostly: Mapping[str, int], given: str | None = None) -> tuple[str, int, str]:
+    """Choose among the units most values fit: ``(unit, level, why)``.
+
+    ``given`` (declared or named) wins if most values fit it; else the unit the most values
+    fit, with :func:`_prefer` deciding a tie on the values that fit.  The level is medium
+    when at least :data:`MOSTLY_FIT_MEDIUM` of the values fit, else low.
+    """
+    top = max(mostly.values())
+    tied = [unit for unit, count in mostly.items() if count == top]
+    level, preference = HIGH, ""
+    if given in mostly:
+        unit = given
+    elif len(tied) > 1:
+        windows = VALUE_WINDOWS[quantity]
+        inside = np.logical_or.reduce([summary.inside(windows[u]) for u in tied])
+        unit, level, preference = _prefer(quantity, tied, ValueSummary.of(summary.finite[inside]))
+        preference = f"; {preference}"
+    else:
+        unit = tied[0]
+    share_level = MEDIUM if mostly[unit] >= MOSTLY_FIT_MEDIUM * summary.count else LOW
+    return (unit, min(level, share_level),
+            f"{_misfit_note(quantity, summary, unit, allowed)}{preference}; taken as {unit} "
+            "(the rules flag the rows that do not fit)")
+
+
+def _misfit_note(quantity: str, summary: ValueSummary, unit: str, allowed: Sequence[str]
+                 ) -> str:
+    """``9 of 10 values fit K; 1 does not (3.76: a log10 value?)``: the count of values
+    outside ``unit``'s window and the first few distinct ones, with the unit they fit."""
+    inside = summary.inside(VALUE_WINDOWS[quantity][unit])
+    odd = summary.finite[~inside]
+    _, first = np.unique(odd, return_index=True)
+    distinct = odd[np.sort(first)]
+    shown = "; ".join(f"{_number(value)}: {_odd_value_reading(quantity, value, unit, allowed)}"
+                      for value in distinct[:ODD_VALUES_SHOWN])
+    example = "e.g. " if distinct.size > ODD_VALUES_SHOWN else ""
+    verb = "does" if odd.size == 1 else "do"
+    return (f"{summary.count - odd.size:,} of {summary.count:,} values fit {unit}; "
+            f"{odd.size:,} {verb} not ({example}{shown})")
+
+
+def _odd_value_reading(quantity: str, value: float, chosen: str, allowed: Sequence[str]
+                       ) -> str:
+    """What a value outside ``chosen``'s window might be: ``a log10 value?``, ``in km?``."""
+    windows = VALUE_WINDOWS[quantity]
+    others = [unit for unit in allowed
+              if unit != chosen and windows[unit][0] <= value <= windows[unit][1]]
+    if not others:
+        return f"fits no unit of {quantity}"
+    unit, _, _ = _prefer(quantity, others, ValueSummary.of(np.array([value])))
+    return "a log10 value?" if unit.startswith("dex") else f"in {unit}?"
+
+
+def _why_no_unit(quantity: str, summary: ValueSummary, allowed: Sequence[str],
+                 clear_name: bool) -> str:
+    """Why a column is left out although it may be ``quantity``: how many values the best
+    unit fits, and why that is not enough."""
+    unit, count = next(iter(_fit_counts(quantity, summary, allowed).items()))
+    if count == 0:
+        return f"no value fits any unit of {quantity}"
+    if count > MOSTLY_FIT * summary.count and not clear_name:
+        return (f"{_misfit_note(quantity, summary, unit, allowed)}; only a column whose name "
+                "or UCD clearly says the quantity is mapped with values that do not fit")
+    return (f"the unit most values fit, {unit}, fits {count:,} of {summary.count:,}, "
+            "not more than half")
 
 
 def _declared_unit(quantity: str, unit: UnitReading | None) -> tuple[str | None, str]:
@@ -1311,8 +1458,8 @@ def _render(proposal: ProfileProposal) -> str:
                   f"{proposal.sample_rows:,} of {proposal.total_rows:,} rows."),
         *_comment("Each mapping gives its evidence and a confidence: high (the name or UCD, "
                   "and the unit, agree with the values), medium (one of them rests on a "
-                  "preference among readings that fit), low (check it by hand). Review it, "
-                  "then run:"),
+                  "preference among readings that fit, or a few values fit no reading), low "
+                  "(check it by hand). Review it, then run:"),
         f"#   catcheck check {source} --profile <this file>",
         "",
     ]

@@ -137,11 +137,12 @@ def test_kilokelvin_is_a_teff_unit() -> None:
 
 # --- values -------------------------------------------------------------------------------
 
-def decide(quantity: str, values, name: str = "x", unit: str | None = None):
+def decide(quantity: str, values, name: str = "x", unit: str | None = None,
+           clear_name: bool = False):
     column = pa.array(np.asarray(values, dtype=float))
     meta = {"unit": unit} if unit else None
     return decide_unit(quantity, facts_of(0, pa.field(name, pa.float64(), metadata=meta),
-                                          column))
+                                          column), clear_name=clear_name)
 
 
 RNG = np.random.default_rng(7)
@@ -185,6 +186,88 @@ def test_declared_units_win_when_the_values_agree_and_lose_when_they_do_not() ->
     assert (unit, level) == ("Myr", 3) and "declared" in why
     unit, level, why, _ = decide("teff", np.log10(TEFF), name="Teff", unit="K")
     assert (unit, level) == ("dex(K)", 1) and "unit mistake" in why
+
+
+def test_small_samples_are_described_by_their_real_range_large_ones_by_percentiles() -> None:
+    ten = np.array([5772.0, 5800, 4700, 9000, 3.76, 12_000, 4500, 4800, 4200, 30_000])
+    unit, _, why, _ = decide("teff", ten, name="Teff", clear_name=True)
+    # the real minimum and maximum, not percentiles interpolated between values
+    assert unit == "K" and "values 3.76..30,000 (full range of 10 values, median 5,286)" in why
+    assert "percentile" not in why
+    many = np.concatenate([np.linspace(3_000.0, 9_000.0, 998), [2_000.0, 40_000.0]])
+    why = decide("teff", many)[2]
+    assert "(1st-99th percentile, median 6,000; full range 2,000..40,000)" in why
+
+
+def test_a_clearly_named_column_takes_the_unit_most_values_fit() -> None:
+    teff = TEFF[:200].copy()
+    teff[[3, 50, 90, 120, 150]] = [-999.0, 4.1, -999.0, 12.0, 0.0]
+    unit, level, why, _ = decide("teff", teff, name="Teff", clear_name=True)
+    assert (unit, level) == ("K", 2)
+    assert ("195 of 200 values fit K; 5 do not (e.g. -999: fits no unit of teff; "
+            "4.1: a log10 value?; 12: in kK?)") in why
+    radius = np.array([1.0, 0.95, 10.0, 1.8, 0.012, 0.7, 11.0, 1.8, 6.5, 0.9 * 6.957e5])
+    unit, level, why, _ = decide("radius", radius, name="Rad", clear_name=True)
+    assert (unit, level) == ("Rsun", 2)
+    assert "9 of 10 values fit Rsun; 1 does not (626,130: in km?)" in why
+    # a declared unit most values fit is kept; a third of the values off: low confidence
+    mixed = np.array([5772.0, 5800, 4700, 9000, 3.76, 3.8, 3.9, 4800, 4200, 30_000])
+    unit, level, why, _ = decide("teff", mixed, name="T", unit="K", clear_name=True)
+    assert (unit, level) == ("K", 1)
+    assert why.startswith('declared unit "K" says K; values 3.76..30,000')
+    assert "7 of 10 values fit K; 3 do not (3.76: a log10 value?; 3.8: a log10 value?; " in why
+
+
+def test_a_column_is_left_out_only_when_no_unit_fits_most_values_and_says_why() -> None:
+    half = np.array([5772.0, 5800, 4700, 9000, 4500, 3.76, 3.8, 3.9, 3.7, 4.1])
+    why = decide("teff", half, name="Teff", clear_name=True)
+    assert isinstance(why, str) and "fit no unit of teff" in why
+    assert "the unit most values fit, K, fits 5 of 10, not more than half" in why
+    # a name that only may mean the quantity ("temp") needs the values to fit cleanly
+    nine = np.array([5772.0, 5800, 4700, 9000, 3.76, 12_000, 4500, 4800, 4200, 30_000])
+    why = decide("teff", nine, name="temp")
+    assert isinstance(why, str) and "9 of 10 values fit K; 1 does not" in why
+    assert "only a column whose name or UCD clearly says the quantity is mapped" in why
+
+
+def newcomer_table(path: Path) -> Path:
+    """Ten invented stars, each quantity in its usual unit but for a few odd values: a
+    log10 Teff among Teffs in K (row 4), a radius in km among radii in Rsun (row 6)."""
+    frame = pd.DataFrame({
+        "Star": [f"LOCS-7-{i}" for i in range(10)],
+        "Teff": [5772.0, 5800, 4700, 9000, 3.76, 12_000, 4500, 4800, 4200, 30_000],
+        "e_Teff": [60.0, 60, 70, 150, 0.01, 300, 80, 70, 100, 800],
+        "logg": [4.44, 4.44, 2.5, 4.23, 4.46, 8.06, 4.6, 2.53, 3.83, 3.99],
+        "logL": [0.0, 0.02, 1.64, 1.28, -0.1, -2.57, -0.74, 1.76, -0.04, 4.49],
+        "Rad": [1.0, 1.0, 10.0, 1.8, 0.95, 0.012, 0.7 * 6.957e5, 11.0, 1.8, 6.5],
+        "Mass": [1.0, 1.0, 1.2, 2.0, 0.95, 0.6, 0.72, 1.5, 0.8, 15.0],
+    })
+    frame.to_csv(path, index=False)
+    return path
+
+
+def test_a_few_odd_values_do_not_unmap_a_clearly_named_column(tmp_path) -> None:
+    path = newcomer_table(tmp_path / "stars.csv")
+    proposal = propose_profile(open_catalogue([path]))
+    mapping = proposal.mapping()
+    assert mapping["teff"] == ("Teff", "K", "e_Teff")
+    assert mapping["radius"] == ("Rad", "Rsun", None)
+    teff, radius = proposal.quantities["teff"], proposal.quantities["radius"]
+    assert teff.confidence == radius.confidence == 2
+    assert any("9 of 10 values fit K; 1 does not (3.76: a log10 value?)" in e
+               for e in teff.evidence), teff.evidence
+    assert any("9 of 10 values fit Rsun; 1 does not (486,990: in km?)" in e
+               for e in radius.evidence), radius.evidence
+    text = proposal.to_toml()
+    assert "percentile" not in text and not any("teff" in n for n in proposal.not_mapped)
+    # checked with the proposal, the rules flag exactly the odd rows
+    path_toml = tmp_path / "proposed.toml"
+    path_toml.write_text(text)
+    flags = catcheck.check(path, path_toml, ["core", "units"]).flags
+    flagged = {(rule, row) for rule, row in zip(flags["rule"], flags["row"], strict=True)}
+    assert {("teff-log-as-kelvin", 4), ("teff-range", 4), ("radius-km-as-rsun", 6),
+            ("radius-range", 6)} <= flagged
+    assert {row for rule, row in flagged if rule.endswith(("-as-kelvin", "-as-rsun"))} == {4, 6}
 
 
 # --- whole tables -------------------------------------------------------------------------
