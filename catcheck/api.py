@@ -36,7 +36,7 @@ from catcheck.outputs import ReportDirectory, read_flags
 from catcheck.packs import DEFAULT_PACKS, load_rules
 from catcheck.profile import Profile, load_profile
 from catcheck.progress import SizedProgress
-from catcheck.reader import DEFAULT_BATCH_ROWS, ParquetCatalogue
+from catcheck.reader import DEFAULT_BATCH_ROWS
 from catcheck.report import markdown_report
 
 PathLike = str | Path
@@ -184,7 +184,7 @@ def check_frame(frame: pd.DataFrame, profile: PathLike | Profile,
                 baseline=baseline, junit=junit)
 
 
-def _run(catalogue: ParquetCatalogue | TableCatalogue, profile: PathLike | Profile,
+def _run(catalogue: Catalogue, profile: PathLike | Profile,
          rules: Sequence[PathLike],
          out: PathLike | None, fail_on: str, max_flagged_fraction: float | None,
          flags_format: str, batch_rows: int, workers: int,
