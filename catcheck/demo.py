@@ -511,8 +511,8 @@ def run_demo(out_dir: Path, rows: int = 20_000, seed: int = 1) -> str:
     """Write the demo catalogue, check it with the default packs, and tally the faults.
 
     The report goes to ``out_dir / "report"``.  Returns the text to show: the console
-    summary of the check, then per fault kind how many planted faults were found, and how
-    many clean rows were flagged.
+    summary of the check, then per fault kind how many planted faults were found, how
+    many clean rows were flagged, and every file written.
     """
     from catcheck.api import check
     from catcheck.report import console_summary
@@ -530,11 +530,19 @@ def run_demo(out_dir: Path, rows: int = 20_000, seed: int = 1) -> str:
         lines.append(f"  {entry.fault:<{width}} {entry.planted:>9,} {entry.found:>9,} "
                      f"{entry.missed:>8,}  {entry.rules}")
     clean = tally.iloc[-1]
+    # every file of the report, data first, figures last; why there is no page, if none
+    kinds = {".parquet": 0, ".json": 1, ".md": 2, ".html": 3}
+    written = sorted((p.name for p in report.iterdir()),
+                     key=lambda name: (kinds.get(Path(name).suffix, 4), name))
+    visual = result.summary.get("visual_report") or {}
+    if not visual.get("file") and visual.get("note"):
+        written.append(f"report.html {visual['note']}")
     lines += [
         f"  clean rows flagged: {clean.found:,} of {clean.planted:,}",
         "",
-        f"Report: {report}/ (flags.parquet, summary.json, report.md). The demo exits 0: "
-        "its verdict is expected to fail, because faults were planted.",
+        f"Wrote {out_dir}/: {files.catalogue.name}, {files.profile.name}, "
+        f"{files.truth.name}; the report in {report}/: {', '.join(written)}. "
+        "The demo exits 0: its verdict is expected to fail, because faults were planted.",
         "Next: catcheck explain stefan-boltzmann",
     ]
     return "\n".join(lines)

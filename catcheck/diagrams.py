@@ -9,8 +9,9 @@ Two layers, so a catalogue of any size is drawn in bounded memory and time:
   hash, so the points drawn do not depend on batch size or file split);
 * drawing (matplotlib, imported only here and only when drawing): :func:`render` crops
   the histogram to where the stars are, coarsens it to a readable cell size, draws it as
-  a density image and the flagged stars on top, one colour per rule, and returns PNG bytes
-  with fixed metadata (the same run gives the same bytes).
+  a density image and the flagged stars on top, one colour and marker shape per rule
+  (flagged stars beyond the axes are pinned to the frame as triangles pointing outwards),
+  and returns PNG bytes with fixed metadata (the same run gives the same bytes).
 """
 
 from __future__ import annotations
@@ -38,10 +39,16 @@ DISPLAY_CELLS = 240
 TAIL_FRACTION = 0.0005
 MARGIN_FRACTION = 0.06
 
-#: rule colours, in the order rules appear in the run (our own palette)
-RULE_COLOURS = ("#d1495b", "#1f8a99", "#edae49", "#5b8e3e", "#8d5a97", "#e07a5f",
-                "#3d5a80", "#c2a83e", "#b5179e", "#4d908e", "#9c6644", "#577590")
-RULE_MARKERS = ("o", "s", "^", "D", "v", "P")
+#: rule colours (our own palette: ten hues far apart, none grey or as dark as the density
+#: image) and marker shapes (filled, no triangles: those mark points beyond the axes);
+#: rule i of a run gets colour i mod 10 and shape i mod 7, so neighbours in the run differ
+#: in both and the first 70 rules have distinct pairs (see :func:`rule_style`)
+RULE_COLOURS = ("#d7263d", "#1b76c2", "#f2a104", "#2e9e44", "#8e44ad", "#15b2c7",
+                "#c2187a", "#8a5a2b", "#97b814", "#f28cb1")
+RULE_MARKERS = ("o", "s", "D", "P", "X", "p", "h")
+#: flagged stars beyond the axes, pinned to the frame: triangles pointing outwards
+EDGE_MARKERS = {"left": "<", "right": ">", "down": "v", "up": "^"}
+EDGE_OUTLINE = "#1f2a33"
 DENSITY_COLOURS = ("#eef0f2", "#b9c3cc", "#6f8294", "#34495e", "#141e28")
 
 
@@ -72,6 +79,11 @@ class Axis:
     @property
     def bins(self) -> int:
         return round((self.high - self.low) / self.step)
+
+    @property
+    def name(self) -> str:
+        """The coordinate's name without its unit ("log L" for "log L [Lsun]")."""
+        return self.label.split(" [")[0]
 
     def coordinate(self, stars: StarBatch) -> np.ndarray:
         """The binned coordinate of every star of a batch (NaN where not usable)."""
@@ -187,16 +199,81 @@ class DiagramData:
         for rule_id, sample in other.points.items():
             self.points.setdefault(rule_id, RowSample(self.points_per_rule)).merge(sample)
 
-    def flagged_points(self, spec: DiagramSpec) -> dict[str, tuple[np.ndarray, np.ndarray]]:
-        """Per rule, the sampled flagged stars' (x, y) coordinates on a diagram."""
+    def flagged_points(self, spec: DiagramSpec) -> dict[str, RulePoints]:
+        """Per rule, its sampled flagged stars on a diagram: the coordinates of those that
+        have both, and how many of the sample lack one."""
         points = {}
         for rule_id, sample in self.points.items():
             columns = sample.columns()
             x, y = columns[spec.x.key], columns[spec.y.key]
-            both = ~(np.isnan(x) | np.isnan(y))
-            if both.any():
-                points[rule_id] = (x[both], y[both])
+            no_x, no_y = np.isnan(x), np.isnan(y)
+            both = ~(no_x | no_y)
+            points[rule_id] = RulePoints(x[both], y[both], sampled=len(x),
+                                         without_x=int(no_x.sum()), without_y=int(no_y.sum()))
         return points
+
+
+@dataclass(frozen=True)
+class RulePoints:
+    """One rule's sampled flagged stars on one diagram.
+
+    ``x`` and ``y`` hold the stars with both coordinates; ``sampled`` counts the whole
+    sample (at most :data:`POINTS_PER_RULE`), ``without_x`` and ``without_y`` the stars of
+    the sample that lack each coordinate (a star may lack both).
+    """
+
+    x: np.ndarray
+    y: np.ndarray
+    sampled: int
+    without_x: int = 0
+    without_y: int = 0
+
+    @property
+    def plotted(self) -> int:
+        return len(self.x)
+
+
+def legend_label(rule_id: str, flagged: int, points: RulePoints, spec: DiagramSpec) -> str:
+    """A rule's legend entry: its flags, and why any are not on the diagram.
+
+    "teff-range (45)" when every flagged row is drawn; "teff-range (44 of 45 plotted;
+    1 without log L)" when a row lacks a coordinate; "... plotted: a sample of 5,000,
+    3 of them without log L" when there were more flags than the sample holds.
+    """
+    if points.plotted == flagged:
+        return f"{rule_id} ({flagged:,})"
+    missing = points.sampled - points.plotted
+    what = (spec.x.name if not points.without_y else spec.y.name if not points.without_x
+            else f"{spec.x.name} or {spec.y.name}")
+    text = f"{rule_id} ({points.plotted:,} of {flagged:,} plotted"
+    if points.sampled < flagged:
+        text += f": a sample of {points.sampled:,}"
+        return text + (f", {missing:,} of them without {what})" if missing else ")")
+    return text + (f"; {missing:,} without {what})" if missing else ")")
+
+
+def rule_style(index: int) -> tuple[str, str]:
+    """The colour and marker shape of the run's ``index``-th flagged rule."""
+    return RULE_COLOURS[index % len(RULE_COLOURS)], RULE_MARKERS[index % len(RULE_MARKERS)]
+
+
+def edge_directions(x: np.ndarray, y: np.ndarray, x_range: Sequence[float],
+                    y_range: Sequence[float], x_reversed: bool = False,
+                    y_reversed: bool = False) -> np.ndarray:
+    """Where each point beyond the axes lies as seen on the page: "left", "right", "up" or
+    "down" ("" for a point inside).
+
+    A point beyond both axes (a corner) points up or down.  ``*_range`` are the drawn
+    (low, high) values; a reversed axis draws high values on the left (or at the bottom).
+    """
+    def side(values: np.ndarray, bounds: Sequence[float], flipped: bool) -> np.ndarray:
+        beyond = np.where(values < min(bounds), -1, np.where(values > max(bounds), 1, 0))
+        return -beyond if flipped else beyond
+
+    across, upward = side(np.asarray(x), x_range, x_reversed), side(np.asarray(y), y_range,
+                                                                     y_reversed)
+    return np.select([upward > 0, upward < 0, across < 0, across > 0],
+                     ["up", "down", "left", "right"], default="")
 
 
 @dataclass(frozen=True)
@@ -208,6 +285,11 @@ class RenderedDiagram:
     stars: int
     beyond_axes: int
     points_on_edge: int
+
+    @property
+    def size(self) -> tuple[int, int]:
+        """(width, height) of the image in pixels, from the PNG header."""
+        return (int.from_bytes(self.png[16:20], "big"), int.from_bytes(self.png[20:24], "big"))
 
 
 def _window(counts: np.ndarray, axis: Axis) -> tuple[int, int]:
@@ -233,16 +315,30 @@ def _coarsen(image: np.ndarray, x_factor: int, y_factor: int) -> np.ndarray:
         nx // x_factor, x_factor, ny // y_factor, y_factor).sum(axis=(1, 3))
 
 
-def render(grid: DensityGrid, points: Mapping[str, tuple[np.ndarray, np.ndarray]],
+#: the figure's layout in inches: its width, the plot's frame, the room above it and below
+#: it (ticks and axis label); the legend goes under that and the figure grows to hold it
+FIGURE_WIDTH_IN = 7.0
+FRAME_IN = (0.7, 5.18, 3.6)  # left, width, height
+ABOVE_FRAME_IN = 0.45
+BELOW_FRAME_IN = 0.62
+COLOUR_BAR_IN = (6.02, 0.175)  # left, width
+LEGEND_LEFT_IN = 0.1
+DPI = 100
+
+
+def render(grid: DensityGrid, points: Mapping[str, RulePoints],
            rule_order: Sequence[str], flagged: Mapping[str, int]) -> RenderedDiagram:
     """Draw one diagram: the density of all stars, the flagged stars of each rule on top.
 
-    ``rule_order`` fixes each rule's colour (the run's rule order); ``flagged`` gives each
-    rule's total number of flags for the legend.
+    ``rule_order`` fixes each rule's colour and marker shape (the run's flagged rules in
+    order); ``flagged`` gives each rule's total number of flags for the legend.  Flagged
+    stars beyond the axes are drawn on the frame as outlined triangles pointing outwards.
     """
     import matplotlib
+    from matplotlib.backends.backend_agg import FigureCanvasAgg
     from matplotlib.colors import LinearSegmentedColormap, LogNorm
     from matplotlib.figure import Figure
+    from matplotlib.lines import Line2D
 
     spec = grid.spec
     image = grid.image()
@@ -257,9 +353,10 @@ def render(grid: DensityGrid, points: Mapping[str, tuple[np.ndarray, np.ndarray]
     y_range = spec.y.shown(np.array([y_edges[0], y_edges[-1]]))
 
     with matplotlib.rc_context(_STYLE):
-        figure = Figure(figsize=(7.0, 6.2), dpi=100)
-        ax = figure.add_axes((0.1, 0.34, 0.74, 0.58))
-        colour_axes = figure.add_axes((0.86, 0.34, 0.025, 0.58))
+        figure = Figure(figsize=(FIGURE_WIDTH_IN, 6.0), dpi=DPI)
+        FigureCanvasAgg(figure)  # a renderer, to measure the legend
+        ax = figure.add_axes((0.1, 0.3, 0.74, 0.6))
+        colour_axes = figure.add_axes((0.86, 0.3, 0.025, 0.6))
         density = np.ma.masked_equal(shown.T, 0)
         if density.count():
             mesh = ax.pcolormesh(spec.x.shown(x_edges), spec.y.shown(y_edges), density,
@@ -276,22 +373,31 @@ def render(grid: DensityGrid, points: Mapping[str, tuple[np.ndarray, np.ndarray]
                     va="center", color="#5c6b78", fontsize=10)
         on_edge, legend = 0, {}
         drawn = sorted((r for r in rule_order if r in points),
-                       key=lambda r: (-len(points[r][0]), rule_order.index(r)))
+                       key=lambda r: (-points[r].plotted, rule_order.index(r)))
         for layer, rule_id in enumerate(drawn):  # the most flagged first, rarer ones on top
             index = rule_order.index(rule_id)
-            x, y = (spec.x.shown(points[rule_id][0]), spec.y.shown(points[rule_id][1]))
-            x_clipped = np.clip(x, x_range.min(), x_range.max())
-            y_clipped = np.clip(y, y_range.min(), y_range.max())
-            on_edge += int(((x_clipped != x) | (y_clipped != y)).sum())
-            total = flagged.get(rule_id, len(x))
-            label = (f"{rule_id} ({total:,})" if total == len(x)
-                     else f"{rule_id} ({len(x):,} of {total:,} drawn)")
-            marker = RULE_MARKERS[(index // len(RULE_COLOURS)) % len(RULE_MARKERS)]
-            size = 10.0 if len(x) < 500 else 6.0 if len(x) < 2000 else 3.5
-            legend[index] = (ax.scatter(x_clipped, y_clipped, s=size, marker=marker,
-                                        color=RULE_COLOURS[index % len(RULE_COLOURS)],
-                                        alpha=0.85, linewidths=0, zorder=3 + layer,
-                                        clip_on=False), label)
+            colour, marker = rule_style(index)
+            mine = points[rule_id]
+            x, y = spec.x.shown(mine.x), spec.y.shown(mine.y)
+            directions = edge_directions(x, y, x_range, y_range, spec.x.reversed,
+                                         spec.y.reversed)
+            x = np.clip(x, x_range.min(), x_range.max())
+            y = np.clip(y, y_range.min(), y_range.max())
+            size = 15.0 if len(x) < 500 else 8.0 if len(x) < 2000 else 4.0
+            inside = directions == ""
+            ax.scatter(x[inside], y[inside], s=size, marker=marker, color=colour,
+                       alpha=0.85, linewidths=0, zorder=3 + layer)
+            for direction, edge_marker in EDGE_MARKERS.items():
+                here = directions == direction
+                if here.any():
+                    ax.scatter(x[here], y[here], s=28.0, marker=edge_marker, color=colour,
+                               edgecolors=EDGE_OUTLINE, linewidths=0.6,
+                               zorder=3 + len(drawn) + layer, clip_on=False)
+            on_edge += int((~inside).sum())
+            legend[index] = (Line2D([], [], linestyle="none", marker=marker, color=colour,
+                                    markersize=6.0, markeredgewidth=0),
+                             legend_label(rule_id, flagged.get(rule_id, mine.plotted), mine,
+                                          spec))
         for axis, scale, shown_range in ((spec.x, ax.xaxis, x_range),
                                          (spec.y, ax.yaxis, y_range)):
             if axis.show_linear:  # the values on a log scale: even cells, readable ticks
@@ -303,16 +409,56 @@ def render(grid: DensityGrid, points: Mapping[str, tuple[np.ndarray, np.ndarray]
         ax.set_title(spec.title, loc="left", fontweight="bold")
         ax.grid(True, color="#d9dde1", linewidth=0.5, zorder=0)
         ax.set_axisbelow(True)
-        if legend:
-            entries = [legend[index] for index in sorted(legend)]
-            ax.legend([handle for handle, _ in entries], [label for _, label in entries],
-                      loc="upper left", bbox_to_anchor=(0.0, -0.12), ncol=2, frameon=False,
-                      title="flagged rows by rule", title_fontsize=8, fontsize=7.5,
-                      markerscale=1.2, alignment="left")
+        entries = [legend[index] for index in sorted(legend)]
+        if on_edge:
+            entries.append((Line2D([], [], linestyle="none", marker=EDGE_MARKERS["right"],
+                                   color="#b9c3cc", markeredgecolor=EDGE_OUTLINE,
+                                   markersize=6.5, markeredgewidth=0.6),
+                            "beyond the axes: on the frame, pointing outwards"))
+        legend_height = _legend(figure, entries)
+        _lay_out(figure, ax, colour_axes, legend_height)
         buffer = io.BytesIO()
-        figure.savefig(buffer, format="png", dpi=100, metadata={"Software": None})
+        figure.savefig(buffer, format="png", dpi=DPI, metadata={"Software": None})
     return RenderedDiagram(spec, buffer.getvalue(), grid.placed + grid.off_grid,
                            grid.placed + grid.off_grid - int(shown.sum()), on_edge)
+
+
+def _legend(figure: Any, entries: Sequence[tuple[Any, str]]) -> float:
+    """Put the legend of ``entries`` (handle, label) under the plot, in two columns when
+    they fit the figure's width, else one; returns its height in inches (0 without one)."""
+    if not entries:
+        return 0.0
+
+    def place(columns: int) -> Any:
+        return figure.legend([handle for handle, _ in entries],
+                             [label for _, label in entries], loc="upper left",
+                             ncol=columns, frameon=False, title="flagged rows by rule",
+                             title_fontsize=8, fontsize=7.5, alignment="left",
+                             handletextpad=0.4, columnspacing=1.5)
+
+    renderer = figure.canvas.get_renderer()
+    legend = place(2)
+    box = legend.get_window_extent(renderer)
+    if box.width > (FIGURE_WIDTH_IN - 2 * LEGEND_LEFT_IN) * figure.dpi:
+        legend.remove()
+        box = place(1).get_window_extent(renderer)
+    return box.height / figure.dpi
+
+
+def _lay_out(figure: Any, ax: Any, colour_axes: Any, legend_height: float) -> None:
+    """Size the figure to the plot and the legend under it; place both (in inches)."""
+    below = BELOW_FRAME_IN + (legend_height + 0.12 if legend_height else 0.0)
+    height = ABOVE_FRAME_IN + FRAME_IN[2] + below
+    figure.set_size_inches(FIGURE_WIDTH_IN, height)
+    left, width, frame_height = FRAME_IN
+    ax.set_position((left / FIGURE_WIDTH_IN, below / height, width / FIGURE_WIDTH_IN,
+                     frame_height / height))
+    colour_axes.set_position((COLOUR_BAR_IN[0] / FIGURE_WIDTH_IN, below / height,
+                              COLOUR_BAR_IN[1] / FIGURE_WIDTH_IN, frame_height / height))
+    for legend in figure.legends:
+        legend.set_bbox_to_anchor((LEGEND_LEFT_IN / FIGURE_WIDTH_IN,
+                                   (legend_height + 0.08) / height),
+                                  transform=figure.transFigure)
 
 
 def _log_scale_in_values(ax: Any, scale: Any, shown_range: np.ndarray) -> None:

@@ -2,8 +2,9 @@
 
 Written with the ``plot`` extra (matplotlib) into the report directory beside report.md;
 without matplotlib the run still succeeds and summary.json says why there is no page.
-The page holds the verdict, the catalogue-level findings, an HR and a Kiel diagram (the
-whole catalogue as a density image, the flagged rows on top by rule: see
+The page holds the verdict (with the rules that did not run), the catalogue-level
+findings, an HR and a Kiel diagram (the whole catalogue as a density image, the flagged
+rows on top by rule, each rule in its own colour and marker shape: see
 :mod:`catcheck.diagrams`), the per-rule counts and each rule's worst flags with their
 messages.  Figures are embedded as base64 PNG data, styles are inline, nothing is fetched
 from elsewhere: the file can be mailed or archived on its own.  The same run gives the
@@ -15,6 +16,7 @@ from __future__ import annotations
 import base64
 import html
 import importlib.util
+import math
 from collections.abc import Mapping, Sequence
 from typing import TYPE_CHECKING, Any
 
@@ -22,15 +24,24 @@ from catcheck.diagrams import (
     HR_DIAGRAM,
     KIEL_DIAGRAM,
     POINTS_PER_RULE,
-    RULE_COLOURS,
     DiagramData,
     DiagramSpec,
     RenderedDiagram,
     render,
+    rule_style,
 )
 from catcheck.findings import FlagStatistics
 from catcheck.profile import Profile
-from catcheck.report import CAUTION
+from catcheck.report import (
+    CAUTION,
+    FLAGS_MEANING,
+    NOT_RUN_NEVER_FAILS,
+    ROWS_MEANING,
+    flag_total,
+    not_run_line,
+    row_total,
+    skipped_counts,
+)
 
 if TYPE_CHECKING:
     from catcheck.engine import BatchObserver
@@ -113,9 +124,12 @@ def html_page(summary: Mapping[str, Any], figures: Sequence[RenderedDiagram],
     """The whole page as text (pure: the same inputs give the same text)."""
     gate = summary["gate"]
     verdict = "PASSED" if gate["passed"] else "FAILED"
+    not_run = not_run_line(summary)
     sections = [
         f'<header class="{"pass" if gate["passed"] else "fail"}"><p class="tool">catcheck '
-        f'{_e(summary["version"])}</p><h1>{verdict}</h1><p>{_e(gate["reason"])}</p></header>',
+        f'{_e(summary["version"])}</p><h1>{verdict}</h1><p>{_e(gate["reason"])}</p>'
+        + (f'<p class="not-run">{_e(not_run)}. {NOT_RUN_NEVER_FAILS}</p>'
+           if not_run else "") + "</header>",
         _facts(summary),
         _findings(summary.get("catalogue_findings") or []),
         _diagrams(figures, missing),
@@ -136,16 +150,15 @@ def _e(value: Any) -> str:
 
 
 def _facts(summary: Mapping[str, Any]) -> str:
-    severities = ", ".join(f"{n:,} {name}" for name, n in summary["rows_by_severity"].items()
-                           if n) or "none"
     rows = summary["rows"]
-    share = f" ({100 * summary['flagged_rows'] / rows:.3g}% of rows)" if rows else ""
+    share = f", {100 * summary['flagged_rows'] / rows:.3g}% of rows" if rows else ""
     facts = [("input", f"<code>{_e(summary['input'])}</code>"),
              ("profile", f"<code>{_e(summary['profile'])}</code>"),
              ("rule packs", ", ".join(f"<code>{_e(p)}</code>" for p in summary["packs"])),
              ("rows read", f"{rows:,}"),
-             ("flagged rows", f"{summary['flagged_rows']:,}{share}: {_e(severities)}")]
-    items = "".join(f"<dt>{name}</dt><dd>{value}</dd>" for name, value in facts)
+             (FLAGS_MEANING, _e(flag_total(summary))),
+             (ROWS_MEANING, _e(row_total(summary)) + share)]
+    items = "".join(f"<dt>{_e(name)}</dt><dd>{value}</dd>" for name, value in facts)
     return f'<dl class="facts">{items}</dl>'
 
 
@@ -170,13 +183,15 @@ def _diagrams(figures: Sequence[RenderedDiagram], missing: str) -> str:
         caption = (f"{figure.stars:,} rows with both values drawn as a density image"
                    + (f" ({figure.beyond_axes:,} beyond the axes)" if figure.beyond_axes
                       else "")
-                   + "; flagged rows on top, coloured by rule (at most "
+                   + "; flagged rows on top, one colour and marker shape per rule (at most "
                    f"{POINTS_PER_RULE:,} per rule, chosen by row number hash)"
                    + (f"; {figure.points_on_edge:,} flagged points beyond the axes are drawn "
-                      "on the edge" if figure.points_on_edge else "")
+                      "on the frame as outlined triangles pointing outwards"
+                      if figure.points_on_edge else "")
                    + f". Also saved as <code>{_e(figure.spec.file)}</code>.")
+        width, height = figure.size
         blocks.append(f'<figure><img src="data:image/png;base64,{data}" '
-                      f'alt="{_e(figure.spec.title)}" width="700" height="620">'
+                      f'alt="{_e(figure.spec.title)}" width="{width}" height="{height}">'
                       f"<figcaption>{caption}</figcaption></figure>")
     note = f'<p class="note">{_e(missing)}.</p>' if missing else ""
     if not blocks and not note:
@@ -190,26 +205,25 @@ def _rules(summary: Mapping[str, Any], rule_order: Sequence[str]) -> str:
     most = max([r.get("flagged", 0) for r in summary["rules"]] + [1]) / rows
     lines = []
     for rule in summary["rules"]:
-        swatch = ""
-        if rule["id"] in rule_order:
-            colour = RULE_COLOURS[rule_order.index(rule["id"]) % len(RULE_COLOURS)]
-            swatch = f'<span class="swatch" style="background:{colour}"></span>'
+        swatch = _swatch(rule_order.index(rule["id"])) if rule["id"] in rule_order else ""
         if rule["status"] == "ran":
             share = rule["flagged"] / rows
             escalated = (f" ({rule['flagged_as_error']:,} as error)"
                          if rule.get("flagged_as_error") else "")
-            counts = (f'<td class="n">{rule["checked"]:,}</td><td class="n">'
-                      f'{rule["skipped"]:,}</td><td class="n">{rule["flagged"]:,}{escalated}'
-                      f'</td><td class="n">{100 * share:.3g}% <span class="bar" '
-                      f'style="width:{_bar(share / most)}"></span></td>')
+            missing, not_applicable = skipped_counts(rule)
+            counts = (f'<td class="n">{rule["checked"]:,}</td><td class="n">{missing:,}</td>'
+                      f'<td class="n">{not_applicable:,}</td><td class="n">'
+                      f'{rule["flagged"]:,}{escalated}</td><td class="n">{100 * share:.3g}% '
+                      f'<span class="bar" style="width:{_bar(share / most)}"></span></td>')
         else:
-            counts = f'<td colspan="4" class="muted">{_e(rule["status"])}</td>'
+            counts = f'<td colspan="5" class="muted">{_e(rule["status"])}</td>'
         lines.append(f"<tr><td>{swatch}<code>{_e(rule['id'])}</code></td>"
                      f"<td>{_e(rule['pack'])}</td><td class=\"{_e(rule['severity'])}\">"
                      f"{_e(rule['severity'])}</td>{counts}<td>{_e(rule['summary'])}</td></tr>")
     return ("<section><h2>Rules</h2><table class=\"rules\"><thead><tr><th>rule</th>"
-            "<th>pack</th><th>severity</th><th>checked</th><th>skipped</th><th>flagged</th>"
-            "<th>of all rows</th><th>what it checks</th></tr></thead><tbody>"
+            "<th>pack</th><th>severity</th><th>checked</th><th>skipped: missing value</th>"
+            "<th>skipped: not applicable</th><th>flagged</th><th>of all rows</th>"
+            "<th>what it checks</th></tr></thead><tbody>"
             + "".join(lines) + "</tbody></table></section>")
 
 
@@ -230,9 +244,8 @@ def _worst(summary: Mapping[str, Any], flags: FlagStatistics,
             f'<td class="{_e(r["severity"])}">{_e(r["severity"])}</td><td class="n">'
             f'{_deviation(r["deviation"])}</td><td>{_e(r["message"])}</td></tr>'
             for r in records)
-        colour = RULE_COLOURS[rule_order.index(rule_id) % len(RULE_COLOURS)]
-        blocks.append(f'<h3><span class="swatch" style="background:{colour}"></span>'
-                      f"<code>{_e(rule_id)}</code></h3><table class=\"worst\"><thead><tr>"
+        blocks.append(f"<h3>{_swatch(rule_order.index(rule_id))}<code>{_e(rule_id)}</code>"
+                      "</h3><table class=\"worst\"><thead><tr>"
                       "<th>row</th><th>id</th><th>severity</th><th>deviation</th>"
                       f"<th>message</th></tr></thead><tbody>{rows}</tbody></table>")
     if not blocks:
@@ -240,6 +253,38 @@ def _worst(summary: Mapping[str, Any], flags: FlagStatistics,
     return ("<section><h2>Worst flags by rule</h2><p>Each rule's flags with the largest "
             "deviation in combined sigma (rules that give none: the first flagged rows)."
             f"</p>{''.join(blocks)}</section>")
+
+
+def _swatch(index: int) -> str:
+    """The colour and marker shape of the run's ``index``-th flagged rule, as inline SVG
+    (as drawn in the diagrams)."""
+    colour, marker = rule_style(index)
+    return (f'<svg class="swatch" width="12" height="12" viewBox="0 0 12 12" '
+            f'aria-hidden="true"><g fill="{colour}">{_MARKER_SHAPES[marker]}</g></svg>')
+
+
+def _polygon(corners: int, radius: float, turn: float = 0.0) -> str:
+    """A regular polygon centred in the 12 x 12 swatch, a corner at the top (plus ``turn``
+    degrees)."""
+    points = " ".join(
+        f"{6 + radius * math.sin(math.radians(turn + 360 * k / corners)):.2f},"
+        f"{6 - radius * math.cos(math.radians(turn + 360 * k / corners)):.2f}"
+        for k in range(corners))
+    return f'<polygon points="{points}"/>'
+
+
+_PLUS = ('<polygon points="4.2,0.8 7.8,0.8 7.8,4.2 11.2,4.2 11.2,7.8 7.8,7.8 7.8,11.2 '
+         '4.2,11.2 4.2,7.8 0.8,7.8 0.8,4.2 4.2,4.2"{}/>')
+#: the diagrams' marker shapes (matplotlib marker codes) as SVG
+_MARKER_SHAPES = {
+    "o": '<circle cx="6" cy="6" r="5"/>',
+    "s": '<rect x="1.5" y="1.5" width="9" height="9"/>',
+    "D": _polygon(4, 5.6),
+    "P": _PLUS.format(""),
+    "X": _PLUS.format(' transform="rotate(45 6 6)"'),
+    "p": _polygon(5, 5.6),
+    "h": _polygon(6, 5.6),
+}
 
 
 def _deviation(value: float | None) -> str:
@@ -281,7 +326,8 @@ th{background:#eef0f2;font-weight:600}
 td.n{text-align:right;font-variant-numeric:tabular-nums;white-space:nowrap}
 td.error{color:var(--fail);font-weight:600}td.warning{color:var(--warn);font-weight:600}
 .muted,.note{color:var(--muted)}
-.swatch{display:inline-block;width:10px;height:10px;border-radius:50%;margin-right:6px}
+.swatch{display:inline-block;vertical-align:-1px;margin-right:6px}
+header .not-run{font-weight:600}
 .bar{display:inline-block;height:9px;background:var(--fail);vertical-align:middle;
 opacity:.7;margin-left:4px}
 table.worst{table-layout:fixed}

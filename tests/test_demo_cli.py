@@ -45,6 +45,10 @@ def test_demo_writes_the_documented_layout(demo) -> None:
         assert rule["checked"] + rule["skipped"] == summary["rows"] or rule["status"] != "ran"
     assert "Planted faults found by the check" in stdout
     assert "clean rows flagged:" in stdout
+    # the closing line names every file the demo wrote, the page and figures included
+    closing = next(line for line in stdout.splitlines() if line.startswith("Wrote "))
+    for path in [*out.glob("*.*"), *(out / "report").iterdir()]:
+        assert path.name in closing, path.name
 
 
 def test_demo_finds_its_planted_faults(demo) -> None:

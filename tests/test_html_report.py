@@ -7,6 +7,7 @@ The screenshot test opens the page in headless Chromium (Debian package ``chromi
 from __future__ import annotations
 
 import base64
+import itertools
 import json
 import re
 import shutil
@@ -20,7 +21,19 @@ from factory import sun_like, write_catalogue
 import catcheck
 from catcheck import html_report
 from catcheck.demo import write_demo
-from catcheck.diagrams import HR_DIAGRAM, KIEL_DIAGRAM, DensityGrid, _window
+from catcheck.diagrams import (
+    EDGE_MARKERS,
+    HR_DIAGRAM,
+    KIEL_DIAGRAM,
+    RULE_MARKERS,
+    DensityGrid,
+    RulePoints,
+    _window,
+    edge_directions,
+    legend_label,
+    render,
+    rule_style,
+)
 
 pytest.importorskip("matplotlib")
 
@@ -118,6 +131,75 @@ def test_a_profile_without_log_g_draws_the_hr_diagram_only(tmp_path) -> None:
     page = (tmp_path / "out" / "report.html").read_text(encoding="utf-8")
     assert "no Kiel diagram: the profile maps no Teff or no log g" in page
     assert not (tmp_path / "out" / "kiel_diagram.png").exists()
+
+
+def test_page_says_which_rules_did_not_run_and_splits_skipped_rows(demo) -> None:
+    _, out = demo
+    page = (out / "report.html").read_text(encoding="utf-8")
+    summary = json.loads((out / "summary.json").read_text())
+    idle = [r for r in summary["rules"] if r["status"] != "ran"]
+    header = page[page.index("<header"):page.index("</header>")]
+    assert f"{len(idle)} of {len(summary['rules'])} rules not run: missing " in header
+    assert "<th>skipped: missing value</th><th>skipped: not applicable</th>" in page
+    assert "flags (one per row and rule that failed)" in page
+    # the figures' size on the page is the PNGs' own (the legend sets their height)
+    for spec in (HR_DIAGRAM, KIEL_DIAGRAM):
+        png = (out / spec.file).read_bytes()
+        width, height = int.from_bytes(png[16:20], "big"), int.from_bytes(png[20:24], "big")
+        assert f'alt="{spec.title}" width="{width}" height="{height}"' in page
+
+
+def test_legend_says_why_flags_are_not_plotted() -> None:
+    xs, ys = np.array([3.7, 3.8]), np.array([0.0, 1.0])
+    every = RulePoints(xs, ys, sampled=2)
+    assert legend_label("teff-range", 2, every, HR_DIAGRAM) == "teff-range (2)"
+    lacking_l = RulePoints(xs, ys, sampled=3, without_y=1)
+    assert legend_label("teff-range", 3, lacking_l, HR_DIAGRAM) == (
+        "teff-range (2 of 3 plotted; 1 without log L)")
+    lacking_both = RulePoints(xs, ys, sampled=4, without_x=1, without_y=2)
+    assert legend_label("r", 4, lacking_both, KIEL_DIAGRAM) == (
+        "r (2 of 4 plotted; 2 without Teff or log g)")
+    sampled = RulePoints(xs, ys, sampled=3, without_x=1)
+    assert legend_label("r", 9000, sampled, HR_DIAGRAM) == (
+        "r (2 of 9,000 plotted: a sample of 3, 1 of them without log Teff)")
+    assert legend_label("r", 9000, every, HR_DIAGRAM) == "r (2 of 9,000 plotted: a sample of 2)"
+
+
+def test_points_beyond_the_axes_point_outwards_as_drawn() -> None:
+    x = np.array([3.8, 3.0, 5.0, 3.8, 3.8, 5.0])
+    y = np.array([0.0, 0.0, 0.0, -9.0, 9.0, 9.0])
+    # log Teff is drawn reversed: a hotter star beyond the axes lies to the left
+    assert edge_directions(x, y, (3.5, 4.5), (-2.0, 4.0), x_reversed=True).tolist() == [
+        "", "right", "left", "down", "up", "up"]
+    # log g grows downwards on a Kiel diagram: a too-high log g lies below the frame
+    assert edge_directions(x[3:5], y[3:5], (3.5, 4.5), (-2.0, 4.0),
+                           y_reversed=True).tolist() == ["up", "down"]
+
+
+def test_rule_styles_tell_twenty_rules_apart() -> None:
+    styles = [rule_style(i) for i in range(20)]
+    assert len(set(styles)) == 20
+    for (colour, marker), (next_colour, next_marker) in itertools.pairwise(styles):
+        assert colour != next_colour and marker != next_marker
+    assert not set(RULE_MARKERS) & set(EDGE_MARKERS.values())  # triangles mean "beyond"
+    # the page's rule tables show each rule's colour and shape as in the diagrams
+    assert set(RULE_MARKERS) <= set(html_report._MARKER_SHAPES)
+    colour, marker = rule_style(12)
+    assert html_report._swatch(12).count(colour) == 1
+    assert html_report._MARKER_SHAPES[marker] in html_report._swatch(12)
+
+
+def test_render_pins_points_beyond_the_axes_to_the_frame() -> None:
+    grid = DensityGrid(HR_DIAGRAM)
+    rng = np.random.default_rng(2)
+    grid.add(rng.uniform(3.6, 3.9, 2000), rng.uniform(-1.0, 1.0, 2000))
+    points = {"inside": RulePoints(np.array([3.7]), np.array([0.0]), sampled=2, without_y=1),
+              "beyond": RulePoints(np.array([3.7, 5.5]), np.array([7.0, 0.0]), sampled=2)}
+    drawn = render(grid, points, ["inside", "beyond"], {"inside": 2, "beyond": 2})
+    assert drawn.points_on_edge == 2
+    assert drawn.png.startswith(PNG_SIGNATURE) and drawn.size[0] == 700
+    assert render(grid, points, ["inside", "beyond"], {"inside": 2, "beyond": 2}).png == (
+        drawn.png)  # deterministic
 
 
 def test_density_grid_counts_every_star_once() -> None:

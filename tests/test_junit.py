@@ -10,6 +10,7 @@ GitHub test-report actions): a ``testsuite`` with integer ``tests``, ``failures`
 
 from __future__ import annotations
 
+import json
 import re
 import xml.etree.ElementTree as ET
 from pathlib import Path
@@ -223,11 +224,21 @@ def test_report_md_is_fit_for_a_review_comment(release, tmp_path, capsys) -> Non
     lines = report.splitlines()
     assert lines[0] == "## catcheck: FAILED"
     assert lines[2] == "**1 error flag in stefan-boltzmann (--fail-on error)**"
-    assert lines[4] == "20 rows checked; 2 flagged (1 warning, 1 error)."
-    assert "| rule | pack | severity | checked | skipped | flagged | gate |" in report
-    assert "| `stefan-boltzmann` | core | error | 20 | 0 | 1 | **fails** (1) |" in report
-    assert "| `age-range` | core | warning | 20 | 0 | 1 | passes |" in report
-    assert any(line.startswith("| `surface-gravity` | core | error |  |  |  | not-run: ")
+    # flags (one per row and rule) and flagged rows (each once) are told apart
+    assert lines[4:7] == [
+        "- rows checked: 20",
+        "- flags (one per row and rule that failed): 2 (1 error, 1 warning)",
+        "- flagged rows (each counted once, by its worst flag): 2 (1 error, 1 warning)"]
+    # the rules that did not run, counted, with the quantity most of them lack first
+    rules = json.loads((tmp_path / "qc" / "summary.json").read_text())["rules"]
+    idle = [r for r in rules if r["status"] != "ran"]
+    assert lines[7].startswith(f"- {len(idle)} of {len(rules)} rules not run: missing mass (")
+    assert lines[7].endswith(". Rules that do not run cannot fail the gate.")
+    assert ("| rule | pack | severity | checked | skipped: missing value "
+            "| skipped: not applicable | flagged | gate |") in report
+    assert "| `stefan-boltzmann` | core | error | 20 | 0 | 0 | 1 | **fails** (1) |" in report
+    assert "| `age-range` | core | warning | 20 | 0 | 0 | 1 | passes |" in report
+    assert any(line.startswith("| `surface-gravity` | core | error |  |  |  |  | not-run: ")
                for line in lines)
     assert report.count("<details>") == report.count("</details>") == 3  # 2 rules + run
     assert "<details><summary><code>age-range</code>: 1 warning (first 1)</summary>" in report
