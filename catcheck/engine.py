@@ -99,6 +99,10 @@ class RuleStats:
             entry["flagged_as_error"] = self.escalated
         if self.rule.check.uses_errors:
             entry["assumed_errors"] = sorted(self.assumed_errors)
+            # the values used where the catalogue gives no error (reports show them)
+            entry["assumed_error_params"] = {name: value for name, value
+                                             in sorted(self.rule.params.items())
+                                             if name.startswith("assumed_")}
         return entry
 
 
@@ -323,8 +327,11 @@ def _prepare(rule: Rule, profile: Profile) -> RuleStats:
     missing = [q for q in rule.needs if not profile.provides(q)]
     if rule.check.group_variables and not profile.group_column:
         missing.append("group")
+    reason = rule.check.not_run_reason(rule.params) if rule.check.not_run_reason else None
     if missing:
         stats.status = f"not-run: missing {', '.join(missing)}"
+    elif reason:
+        stats.status = f"not-run: {reason}"
     return stats
 
 

@@ -3,9 +3,13 @@
 A row flag says "this value is odd".  When a unit-blunder rule
 (:mod:`catcheck.checks.unit_blunders`) fires, the flags together also say something about
 the column: if most of its values read as another unit, the column's declared unit is
-wrong, not its stars.  After a run, every unit-blunder rule that flagged rows becomes one
-*finding* (summary.json ``catalogue_findings``) with the evidence: rows flagged, the
-fraction of rows checked, the median value as catalogued and in the suggested unit.
+wrong, not its stars; if a sizeable share does, the column mixes units.  After a run,
+every unit-blunder rule that flagged the whole column (WHOLE_COLUMN_FRACTION) or enough
+rows for a mix of units (MIX_MIN_FRACTION and MIX_MIN_ROWS) becomes one *finding*
+(summary.json ``catalogue_findings``) with the evidence: rows flagged, the fraction of
+rows checked, the median value as catalogued and in the suggested unit.  Fewer flagged
+rows are isolated odd values, not a statement about the column: they keep their row
+flags and make no finding.
 
 The medians come from :class:`FlagStatistics`, which sees every flag of a run as it leaves
 the engine (it wraps the flag sink, so it works for any number of workers) and keeps, per
@@ -16,7 +20,6 @@ the largest deviation (the worst examples of the visual report).
 
 from __future__ import annotations
 
-import html
 from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass, field
 from typing import TYPE_CHECKING, Any
@@ -25,6 +28,7 @@ import numpy as np
 import pyarrow as pa
 import pyarrow.compute as pc
 
+from catcheck import markdown as md
 from catcheck.checks.base import fmt
 from catcheck.checks.unit_blunders import BLUNDERS, declared_unit
 from catcheck.groups import row_hash
@@ -39,6 +43,15 @@ SAMPLE_SIZE = 4096
 WORST_PER_RULE = 5
 #: a finding covers the whole column when at least this fraction of its rows is flagged
 WHOLE_COLUMN_FRACTION = 0.5
+#: below the whole column, a finding of "a mix of units" needs at least this fraction of
+#: the checked rows and at least MIX_MIN_ROWS rows.  In a column whose unit is right, rows
+#: that read as another unit are isolated typos or coincidences (the 20,000-row demo's
+#: planted 0.5-1 dex luminosity offsets once gave 7 such rows, 0.04%); merged sources that
+#: mix units affect blocks of rows.  0.5% is ten times that coincidence rate and still
+#: finds a mix in 1 row of 200.
+MIX_MIN_FRACTION = 0.005
+#: ... and at least this many rows, so that one odd row of a small table is not a finding
+MIX_MIN_ROWS = 5
 
 FlagSink = Callable[[pa.Table], None]
 
@@ -185,7 +198,8 @@ class FlagStatistics:
 
 def catalogue_findings(rule_stats: Sequence[RuleStats], profile: Profile,
                        flags: FlagStatistics) -> list[dict[str, Any]]:
-    """One finding per unit-blunder rule that flagged rows, in rule order (summary.json)."""
+    """One finding per unit-blunder rule that flagged the whole column or a mix of units
+    (enough rows: MIX_MIN_FRACTION, MIX_MIN_ROWS), in rule order (summary.json)."""
     findings = []
     for stats in rule_stats:
         blunder = BLUNDERS.get(stats.rule.check.name)
@@ -198,6 +212,8 @@ def catalogue_findings(rule_stats: Sequence[RuleStats], profile: Profile,
         median_as_suggested = flags.median(stats.rule.id, "expected")
         suggested = blunder.suggest(median, stats.rule.params)
         scope = "column" if fraction >= WHOLE_COLUMN_FRACTION else "rows"
+        if scope == "rows" and (fraction < MIX_MIN_FRACTION or stats.flagged < MIX_MIN_ROWS):
+            continue  # isolated rows: their flags say all there is to say
         column = _column_name(profile, quantity)
         unit = blunder.declared_unit  # the unit observed and expected values are given in
         evidence = (
@@ -241,7 +257,7 @@ def finding_lines(summary: Mapping[str, Any], markdown: bool = False) -> list[st
              "Columns whose values contradict their declared unit, once per column "
              "(the rows are also flagged one by one):", ""]
     lines += [f"- **{f['severity']}**, {f['quantity']}: "
-              f"{html.escape(f['evidence'], quote=False)} (`{f['rule']}`)" for f in findings]
+              f"{md.text(f['evidence'])} (`{f['rule']}`)" for f in findings]
     return lines
 
 

@@ -143,3 +143,44 @@ def test_missing_mass_is_skipped(value) -> None:
     flagged, counts = run_rule("chandrasekhar-limit", rows)
     assert flagged == [1]
     assert (counts["checked"], counts["skipped"]) == (1, 1)
+
+
+# --- messages: numbers keep their clue, every quantity its unit -------------------------
+
+def core_messages(rows: list[dict]) -> dict[tuple[int, str], str]:
+    """(row, rule) -> message of the core pack on ``rows`` (columns named as UNITS)."""
+    frame = pd.DataFrame(rows)
+    frame.insert(0, "name", [f"r{i}" for i in range(len(frame))])
+    profile = profile_from_dict({"id": "name", "quantities": {
+        column: {"column": column, "unit": UNITS[column]} for column in frame.columns[1:]}})
+    flags = catcheck.check_frame(frame, profile).flags
+    return {(row, rule): message for row, rule, message
+            in zip(flags["row"], flags["rule"], flags["message"], strict=True)}
+
+
+def test_range_messages_give_the_reason_of_the_limit_broken() -> None:
+    messages = core_messages([{"teff": 3.777e6}, {"teff": 3.76}])
+    assert messages[(0, "teff-range")] == (
+        "teff = 3.777e+06 K is above the upper limit 5e+05 K (twice the hottest white "
+        "dwarfs and central stars, ~250,000 K)")
+    assert messages[(1, "teff-range")] == (
+        "teff = 3.76 K is below the lower limit 200 K (the coolest known brown dwarfs are "
+        "~250 K)")
+    for message in messages.values():  # provenance is for `catcheck explain`, not messages
+        assert "from memory" not in message and "Pecaut" not in message
+
+
+def test_relation_messages_keep_small_values_and_name_units() -> None:
+    # a log Teff catalogued as K: 3.76 K must read 3.76 K, never "4 K"
+    messages = core_messages([
+        {"teff": 3.76, "radius": 1.0, "luminosity": 0.0},
+        {"logg": 3.44, "mass": 1.0, "radius": 1.0},
+        {"luminosity": 7.0, "mass": 10.0},
+    ])
+    assert messages[(0, "stefan-boltzmann")].startswith(
+        "log L = 0.00 dex(Lsun) but R = 1 Rsun and Teff = 3.76 K give -12.74 dex(Lsun): ")
+    assert messages[(1, "surface-gravity")].startswith(
+        "log g = 3.44 dex(cm/s2) but M = 1 Msun and R = 1 Rsun give 4.44 dex(cm/s2): ")
+    assert messages[(2, "eddington-limit")].startswith(
+        "log L = 7.00 dex(Lsun) exceeds the Eddington luminosity of M = 10 Msun, "
+        "log L_Edd = 5.81 dex(Lsun), by 1.19 dex")

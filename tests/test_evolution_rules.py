@@ -58,9 +58,20 @@ def test_evolved_too_young_uses_initial_mass_or_a_bound() -> None:
         {"mass": 0.9, "mass0": 1.0, "age": 11.0, "phase": "RGB"},  # a normal old giant
         {"mass": 0.9, "age": 11.0, "phase": "RC"},                 # present mass only: ok
         {"mass": 0.6, "age": 0.5, "phase": "WD"},                  # WD, no initial mass
+        {"mass": 1.0, "age": 0.2, "phase": "RGB"},                 # present mass only: young
     ], "evolved-too-young")
-    assert flags["row"].tolist() == [0]
+    assert flags["row"].tolist() == [0, 4]
     assert counts["not_applicable"] == 1
+    given, bound = flags["message"]
+    # the catalogued initial mass gives the lifetime itself
+    assert given.startswith("RGB star of present mass 0.9 Msun is 2 Gyr old, but its initial "
+                            "mass 1 Msun keeps a star on the main sequence for ")
+    # a present mass bounds the initial mass from above (1.0 x 1.1 + 0.3 Msun lost at
+    # most), so the lifetime from it is a lower bound
+    assert bound.startswith("RGB star of present mass 1 Msun is 200 Myr old, but with an "
+                            "initial mass of at most 1.4 Msun it stays on the main sequence "
+                            "for at least ")
+    assert bound.endswith("sigma too young")
 
 
 def test_pms_too_old() -> None:
@@ -71,13 +82,21 @@ def test_pms_too_old() -> None:
     assert flags["row"].tolist() == [1]
 
 
-def test_white_dwarf_too_young() -> None:
-    flags, _ = run([
-        {"mass": 0.6, "age": 0.010, "phase": "WD"},  # a WD in a 10 Myr cluster
+def test_white_dwarf_too_young_warns_and_escalates_beyond_doubt() -> None:
+    # youngest white dwarf at solar [M/H]: an 8 Msun star's lifetime, ~40 Myr (PARSEC
+    # v1.2S); ages without errors get the assumed 0.1 dex, so sigma = 0.141 dex
+    flags, counts = run([
+        {"mass": 0.6, "age": 0.010, "phase": "WD"},  # 10 Myr: 0.60 dex, 4.3 sigma
+        {"mass": 0.6, "age": 0.001, "phase": "WD"},  # 1 Myr: 1.60 dex, 11 sigma
         {"mass": 0.6, "age": 1.0, "phase": "WD"},
     ], "white-dwarf-too-young")
-    assert flags["row"].tolist() == [0]
-    assert flags.iloc[0]["severity"] == "error"
+    # a field white dwarf counted as a member explains the first: a warning
+    assert dict(zip(flags["row"], flags["severity"], strict=True)) == {0: "warning",
+                                                                      1: "error"}
+    assert counts["flagged_as_error"] == 1
+    assert flags.iloc[0]["message"] == (
+        "white dwarf in a population 10 Myr old, but even an 8 Msun progenitor needs "
+        "40.1 Myr to make one: 4.3 sigma")
 
 
 def test_blue_straggler_candidate_is_only_a_warning_and_needs_a_cluster() -> None:
@@ -131,12 +150,24 @@ def test_phase_envelope_catches_mislabels_and_passes_real_stars() -> None:
     ])
     assert flags["row"].tolist() == [2, 3, 4, 6]
     assert set(flags["severity"]) == {"error"}
-    assert "RGB envelope" in flags.iloc[0]["message"]
+    messages = flags["message"].tolist()
+    # quantity, value and unit, the bound and its unit, at which Teff
+    assert messages[0].startswith("RGB star at Teff = 4800 K: log g = 4.50 dex(cm/s2) is "
+                                  "above the RGB envelope: its upper bound is ")
+    assert " dex(cm/s2) " in messages[0].split("upper bound is ")[1]
+    assert "(0.1 dex margin included)" in messages[0]
+    # judged at the most favourable Teff within the Teff error (2% assumed), it says which
+    assert messages[2].startswith("RGB star at Teff = 9000 K: log g = 2.50 dex(cm/s2) is "
+                                  "above the RGB envelope: its upper bound is ")
+    assert "even at Teff = 9367 K, 2 sigma hotter" in messages[2]
 
 
 def test_phase_envelope_flags_a_cool_dwarf_labelled_white_dwarf() -> None:
     flags = envelope_run([{"teff": 3000.0, "logg": 5.0, "phase": "WD"}])
     assert flags["row"].tolist() == [0]
+    # a Teff outside the phase's range: the message compares Teff itself, in K
+    assert flags.iloc[0]["message"].startswith(
+        "WD star: Teff = 3000 K is below the coolest Teff of the WD envelope, ")
 
 
 def test_phase_envelope_allows_for_the_teff_error_at_steep_edges() -> None:

@@ -31,7 +31,11 @@ def test_every_shipped_rule_is_documented(rule) -> None:
         assert len(text) > 20
     assert doc.references
     if rule.check.name == "physical_range":
-        assert rule.params["limit"] and rule.params["min"] < rule.params["max"]
+        assert rule.params["min"] < rule.params["max"]
+        # a reason for each limit (quoted in messages) and a source (in explain only)
+        for key in ("min_reason", "max_reason", "source"):
+            assert rule.params[key], key
+        assert "from memory" not in rule.params["min_reason"] + rule.params["max_reason"]
 
 
 def test_override_params_severity_and_disable(tmp_path) -> None:

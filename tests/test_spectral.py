@@ -371,6 +371,9 @@ def test_message_and_numbers_name_type_teffs_and_sigma() -> None:
         assert text in first
     assert "M5V" in second and "9000 K" in second and "hotter" in second
     assert "11.8 sigma" in CHECK.doc.example and "0.8 sigma" in CHECK.doc.example
+    # a log Teff catalogued as K keeps its digits: 3.761 K, not "4 K"
+    (log_teff,) = messages(evaluate(["G2V"], [3.761]))
+    assert log_teff.startswith("G2V (dwarf): Teff 3.761 K, but ")
 
 
 def test_catalogue_errors_widen_the_tolerance() -> None:

@@ -71,6 +71,9 @@ class Check:
     #: for group rules: the per-group statistics the check reads in pass 2, by name; the
     #: engine aggregates them over the whole catalogue in pass 1 (see catcheck.groups)
     group_variables: Mapping[str, GroupVariable] = field(default_factory=dict)
+    #: why a rule with these params cannot apply to the catalogue at all (None: it can);
+    #: the engine then reports the rule as ``not-run: <reason>`` instead of running it
+    not_run_reason: Callable[[Params], str | None] | None = None
 
 
 def fixed_needs(*quantities: str) -> Callable[[Params], tuple[str, ...]]:
@@ -128,5 +131,23 @@ def at_rows(rows: np.ndarray, *arrays: np.ndarray) -> zip:
 
 
 def fmt(value: float) -> str:
-    """A number for a message: 4 significant digits, no needless exponent."""
+    """A number for a message: 4 significant digits, no needless exponent.
+
+    Use it for any value that can be far from its usual magnitude (a Teff of 3.76 K stays
+    3.76, not 4); fixed decimals suit only quantities already in dex.
+    """
     return f"{value:.4g}"
+
+
+def indefinite_article(number: str) -> str:
+    """'a' or 'an' before a number as written in a message, by how it is spoken.
+
+    "an" before 8, 8.5, 80, 800 and 8000 ("eight...") and before 11 and 18 and their
+    thousands and millions ("eleven", "eighteen thousand"); "a" otherwise.
+    """
+    digits = number.lstrip("+").split(".")[0].split("e")[0]
+    if not digits.isdigit():
+        return "a"
+    if digits.startswith("8"):
+        return "an"
+    return "an" if len(digits) % 3 == 2 and digits[:2] in ("11", "18") else "a"

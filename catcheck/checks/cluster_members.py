@@ -22,6 +22,7 @@ from catcheck.checks.base import (
     at_rows,
     combined_sigma,
     fixed_needs,
+    fmt,
     sigma_deviation,
 )
 from catcheck.groups import group_labels_at
@@ -61,12 +62,15 @@ def member_check(name: str, quantity: str, member: MemberQuantity, doc: Document
         applies = count >= params["min_members"]
         failed &= applies
 
+        # a spread of logarithms is a plain ratio: dex, whatever the values' unit
+        width_unit = "dex" if member.unit.startswith("dex") else member.unit
+
         def describe(rows: np.ndarray) -> list[str]:
             groups = group_labels_at(batch.groups, rows)
             return [
-                f"{member.label} {v:.4g} {member.unit} is {d:.1f} sigma from the median "
-                f"{m:.4g} of group {g} (n = {n:.0f}, spread {s:.3g} {member.unit}, "
-                f"sigma {sg:.3g})"
+                f"{member.label} {fmt(v)} {member.unit} is {d:.1f} sigma from the median "
+                f"{fmt(m)} {member.unit} of group {g} (n = {n:.0f}, spread {fmt(s)} "
+                f"{width_unit}, sigma {fmt(sg)} {width_unit})"
                 for g, (v, m, n, s, d, sg) in zip(
                     groups, at_rows(rows, values, median, count, spread, deviation, sigma),
                     strict=True)

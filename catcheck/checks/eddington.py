@@ -13,6 +13,7 @@ from catcheck.checks.base import (
     at_rows,
     combined_sigma,
     fixed_needs,
+    fmt,
 )
 from catcheck.physics.stellar import LN10, log_eddington_luminosity_log
 
@@ -57,8 +58,8 @@ def evaluate(batch: StarBatch, params: Params) -> Outcome:
 
     def describe(rows: np.ndarray) -> list[str]:
         return [
-            f"log L = {o:.2f} dex(Lsun) exceeds the Eddington luminosity {e:.2f} of "
-            f"M = {m:.3g} Msun by {o - e:.2f} dex, {d:.1f} sigma"
+            f"log L = {o:.2f} dex(Lsun) exceeds the Eddington luminosity of M = {fmt(m)} "
+            f"Msun, log L_Edd = {e:.2f} dex(Lsun), by {o - e:.2f} dex, {d:.1f} sigma"
             for o, e, m, d in at_rows(rows, observed, expected, mass, deviation)
         ]
 

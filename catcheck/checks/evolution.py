@@ -23,11 +23,14 @@ from catcheck.checks.base import (
     at_rows,
     combined_sigma,
     fixed_needs,
+    fmt,
+    indefinite_article,
     phase_is,
 )
 from catcheck.checks.cluster_members import CLUSTER_LOG_AGE, cluster_log_age
 from catcheck.physics import evolution
 from catcheck.physics.stellar import LN10
+from catcheck.quantities import PHASE_CODES
 
 #: post-main-sequence phases whose present mass bounds the initial mass well enough
 #: (mass lost on the giant branches of low-mass stars is a few tenths of a solar mass)
@@ -97,23 +100,26 @@ def _age_outcome(batch: StarBatch, params: Params, applies: np.ndarray, log_limi
 
 
 def _years(age: float) -> str:
-    """An age for a message, in Myr or Gyr."""
-    return f"{age / 1e9:.3g} Gyr" if age >= 1e9 else f"{age / 1e6:.3g} Myr"
+    """An age for a message: in Gyr, Myr, or yr below 0.1 Myr."""
+    if age >= 1e9:
+        return f"{age / 1e9:.3g} Gyr"
+    return f"{age / 1e6:.3g} Myr" if age >= 1e5 else f"{fmt(age)} yr"
 
 
 def _timescale_outcome(batch: StarBatch, params: Params, rows: np.ndarray,
                        timescale: Callable[..., tuple[np.ndarray, np.ndarray]],
-                       mass: np.ndarray, older: bool, describe_row: Callable[..., str]
-                       ) -> Outcome:
+                       mass: np.ndarray, older: bool, describe_row: Callable[..., str],
+                       extra: tuple[np.ndarray, ...] = ()) -> Outcome:
     """Age against a mass-dependent timescale, for the ``rows`` of one phase.
 
     Masses outside the timescale table (0.1-199.5 Msun) are not checked, and are not
-    counted as checked.
+    counted as checked.  ``describe_row`` gets (age, timescale, deviation, mass, *extra).
     """
     log_t, slope = on_rows(np.flatnonzero(rows), batch.size, timescale, mass,
                            metallicity(batch))
     return _age_outcome(batch, params, rows & np.isfinite(log_t), log_t,
-                        _age_sigma(batch, params, slope), older, describe_row, extra=(mass,))
+                        _age_sigma(batch, params, slope), older, describe_row,
+                        extra=(mass, *extra))
 
 
 # --- ms-lifetime ---------------------------------------------------------------------------
@@ -124,7 +130,7 @@ def evaluate_ms_lifetime(batch: StarBatch, params: Params) -> Outcome:
     return _timescale_outcome(
         batch, params, phase_is(batch, "MS"), evolution.log_main_sequence_lifetime_and_slope,
         mass, older=True, describe_row=lambda age, limit, dev, m: (
-            f"MS star of {m:.3g} Msun is {_years(age)} old, but stars of that mass leave the "
+            f"MS star of {fmt(m)} Msun is {_years(age)} old, but stars of that mass leave the "
             f"main sequence at {_years(limit)}: {dev:.1f} sigma"))
 
 
@@ -135,17 +141,30 @@ def evaluate_evolved_too_young(batch: StarBatch, params: Params) -> Outcome:
 
     The initial mass is used where given; otherwise the present mass of a giant-branch or
     core-helium-burning star, raised by the mass it may have lost, bounds the initial mass
-    from above, so the lifetime used is the shortest the star could have had.
+    from above, so the lifetime used is the shortest the star could have had: a lower
+    bound on its main-sequence lifetime.
     """
     mass, initial = lifetime_mass(batch)
-    upper = np.where(initial, mass, mass * (1.0 + params["mass_loss_fraction"])
+    present = batch.values["mass"]
+    upper = np.where(initial, mass, present * (1.0 + params["mass_loss_fraction"])
                      + params["mass_loss_msun"])
     rows = phase_is(batch, *EVOLVED_PHASES) & (initial | phase_is(batch, *GIANT_PHASES))
+    phase = batch.phase if batch.phase is not None else np.full(batch.size, -1)
+
+    def describe_row(age: float, limit: float, dev: float, initial_mass: float,
+                     present_mass: float, given: float, code: float) -> str:
+        star = f"{PHASE_CODES[int(code)]} star of present mass {fmt(present_mass)} Msun"
+        if given:
+            why = (f"its initial mass {fmt(initial_mass)} Msun keeps a star on the main "
+                   f"sequence for {_years(limit)}")
+        else:
+            why = (f"with an initial mass of at most {fmt(initial_mass)} Msun it stays on "
+                   f"the main sequence for at least {_years(limit)}")
+        return f"{star} is {_years(age)} old, but {why}: {dev:.1f} sigma too young"
+
     return _timescale_outcome(
         batch, params, rows, evolution.log_main_sequence_lifetime_and_slope, upper,
-        older=False, describe_row=lambda age, limit, dev, m: (
-            f"evolved star is {_years(age)} old, but a star of initial mass <= {m:.3g} Msun "
-            f"stays on the main sequence for {_years(limit)}: {dev:.1f} sigma too young"))
+        older=False, describe_row=describe_row, extra=(present, initial, phase))
 
 
 # --- pms-too-old ---------------------------------------------------------------------------
@@ -169,12 +188,13 @@ def evaluate_white_dwarf_too_young(batch: StarBatch, params: Params) -> Outcome:
         metallicity(batch))
     sigma = combined_sigma(batch.log_sigma("age", params["assumed_age_dex"]),
                            params["intrinsic_dex"], floor=params["floor_dex"])
+    mass_text = f"{params['max_progenitor_mass']:g}"
+    progenitor = f"{indefinite_article(mass_text)} {mass_text} Msun"
     return _age_outcome(
         batch, params, white_dwarfs, log_t, sigma, older=False,
         describe_row=lambda age, limit, dev: (
-            f"white dwarf in a population {_years(age)} old, but even a "
-            f"{params['max_progenitor_mass']:g} Msun progenitor needs {_years(limit)} to "
-            f"make one: {dev:.1f} sigma"))
+            f"white dwarf in a population {_years(age)} old, but even {progenitor} "
+            f"progenitor needs {_years(limit)} to make one: {dev:.1f} sigma"))
 
 
 # --- blue-straggler-candidate --------------------------------------------------------------
@@ -211,7 +231,7 @@ def evaluate_blue_straggler(batch: StarBatch, params: Params) -> Outcome:
 
     def describe(rows: np.ndarray) -> list[str]:
         return [
-            f"MS member of {m:.3g} Msun is above its cluster's turn-off mass {t:.3g} Msun "
+            f"MS member of {fmt(m)} Msun is above its cluster's turn-off mass {t:.3g} Msun "
             f"at {_years(a)}: {d:.1f} sigma (a blue straggler, a binary or a non-member)"
             for m, t, a, d in at_rows(rows, mass, turnoff, 10.0 ** log_age, deviation)
         ]
@@ -311,6 +331,7 @@ WHITE_DWARF_TOO_YOUNG = Check(
     name="white_dwarf_too_young",
     needs=fixed_needs("age", "phase"),
     evaluate=evaluate_white_dwarf_too_young,
+    escalates=True,
     doc=Documentation(
         what="Flags a white dwarf in a population younger than the lifetime of the most "
         "massive white-dwarf progenitor.",
@@ -319,17 +340,21 @@ WHITE_DWARF_TOO_YOUNG = Check(
         "40-60 Myr after star formation.",
         formula="t_min = lifetime (main sequence and later phases) of a max_progenitor_mass "
         "star, PARSEC v1.2S\n"
-        "flag when log t_min - log age > threshold * sigma, sigma^2 = s_logage^2 + "
-        "intrinsic_dex^2",
-        caveats="The maximum progenitor mass is uncertain (6-10 Msun); a white dwarf seen "
-        "towards a young cluster can be a field star (a non-member).",
-        example="A white dwarf in a 10 Myr cluster: t_min ~50 Myr, 0.7 dex too young, "
-        "sigma 0.13 dex: 5.4 sigma.",
+        "sigma^2 = s_logage^2 + intrinsic_dex^2\n"
+        "warning when log t_min - log age > threshold * sigma; error beyond "
+        "error_threshold * sigma",
+        caveats="A white dwarf seen towards a young cluster can be a field star wrongly "
+        "counted as a member, so flags are warnings unless beyond error_threshold sigma.  "
+        "The maximum progenitor mass is uncertain (6-10 Msun).",
+        example="A white dwarf in a 10 Myr cluster: t_min ~40 Myr at solar [M/H], 0.6 dex "
+        "too young; with the assumed 0.1 dex age error, sigma 0.14 dex: 4.3 sigma, a "
+        "warning.  With an age error of 0.05 dex (sigma 0.11 dex) it is 5.4 sigma: an "
+        "error.",
         references=(_PARSEC, "Maximum white-dwarf progenitor mass ~6-8 Msun, e.g. "
                     "Cummings et al. (2018), ApJ 866, 21 (from memory)"),
     ),
-    defaults={"threshold": 3.0, "intrinsic_dex": 0.1, "floor_dex": 0.05,
-              "assumed_age_dex": 0.1, "max_progenitor_mass": 8.0},
+    defaults={"threshold": 3.0, "error_threshold": 5.0, "intrinsic_dex": 0.1,
+              "floor_dex": 0.05, "assumed_age_dex": 0.1, "max_progenitor_mass": 8.0},
 )
 
 BLUE_STRAGGLER = Check(

@@ -13,6 +13,7 @@ from catcheck.checks.base import (
     at_rows,
     excess_sigma,
     fixed_needs,
+    fmt,
     phase_is,
 )
 from catcheck.physics.stellar import hydrogen_burning_minimum_mass
@@ -69,8 +70,8 @@ def _mass_outside(batch: StarBatch, params: Params, phase: str, low: np.ndarray 
 
     def describe(rows: np.ndarray) -> list[str]:
         return [
-            f"{phase} star of M = {m:.3g} +- {s:.2g} Msun is {side} the limit {lim:.3g} Msun "
-            f"by {d:.1f} sigma"
+            f"{phase} star of M = {fmt(m)} +- {fmt(s)} Msun is {side} the limit {fmt(lim)} "
+            f"Msun by {d:.1f} sigma"
             for m, s, lim, d in at_rows(rows, mass, sigma, limit, deviation)
         ]
 

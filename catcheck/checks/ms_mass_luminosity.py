@@ -14,6 +14,7 @@ from catcheck.checks.base import (
     combined_sigma,
     excess_sigma,
     fixed_needs,
+    fmt,
     phase_is,
 )
 from catcheck.physics.main_sequence import eker2018_log_luminosity_and_slope
@@ -70,9 +71,9 @@ def evaluate(batch: StarBatch, params: Params) -> Outcome:
         for m, o, lo, hi, d in at_rows(rows, mass, observed, low, high, deviation):
             side, edge = ("above", hi) if o > hi else ("below", lo)
             messages.append(
-                f"MS star of M = {m:.3g} Msun has log L = {o:.2f} dex(Lsun), {side} the "
-                f"main-sequence band {lo:.2f}..{hi:.2f} by {abs(o - edge):.2f} dex, "
-                f"{d:.1f} sigma"
+                f"MS star of M = {fmt(m)} Msun has log L = {o:.2f} dex(Lsun), {side} the "
+                f"main-sequence band {lo:.2f}..{hi:.2f} dex(Lsun) by {abs(o - edge):.2f} "
+                f"dex, {d:.1f} sigma"
             )
         return messages
 

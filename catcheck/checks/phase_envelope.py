@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass
 
 import numpy as np
@@ -16,15 +17,17 @@ from catcheck.checks.base import (
     combined_sigma,
     excess_sigma,
     fixed_needs,
+    fmt,
 )
 from catcheck.physics.envelopes import envelope_bounds, envelope_phases, phase_envelope
 from catcheck.physics.stellar import LN10
 from catcheck.quantities import PHASE_CODES, PHASE_INDEX
 
-#: the envelope bounds of each compared quantity, and its name in messages
+#: the envelope bounds of each compared quantity, and its name and unit in messages
 _BOUNDS = {"logg": ("logg_min", "logg_max"), "luminosity": ("logl_min", "logl_max"),
            "radius": ("log_r_min", "log_r_max")}
-_LABELS = {"logg": "log g", "luminosity": "log L", "radius": "log R"}
+_LABELS = {"logg": ("log g", "dex(cm/s2)"), "luminosity": ("log L", "dex(Lsun)"),
+           "radius": ("log R", "dex(Rsun)")}
 
 
 def _teff_ranges() -> tuple[np.ndarray, np.ndarray]:
@@ -49,6 +52,7 @@ class _Assessment:
     expected: np.ndarray  # the envelope edge passed
     worst: np.ndarray  # index into the compared quantities
     covered: np.ndarray  # the phase has an envelope
+    log_teff: np.ndarray  # the log Teff the envelope edge was taken at
 
 
 def _assess(phase: np.ndarray, log_teff: np.ndarray, s_teff: np.ndarray,
@@ -89,7 +93,8 @@ def _assess(phase: np.ndarray, log_teff: np.ndarray, s_teff: np.ndarray,
     pick = np.arange(len(log_teff))
     deviation = np.where(usable.any(axis=0), stacked[worst, pick], np.nan)
     return _Assessment(deviation, np.vstack(values)[worst, pick],
-                       np.vstack(limits)[worst, pick], worst, bounds.covered)
+                       np.vstack(limits)[worst, pick], worst, bounds.covered,
+                       np.asarray(log_teff, dtype=float).copy())
 
 
 def evaluate(batch: StarBatch, params: Params) -> Outcome:
@@ -109,7 +114,6 @@ def evaluate(batch: StarBatch, params: Params) -> Outcome:
         elif quantity in batch.values:
             compared.append((quantity, batch.log10(quantity),
                              batch.log_sigma(quantity, params["assumed_log_dex"])))
-    names = [_LABELS[q] for q, _, _ in compared] + ["log Teff"]
     result = _assess(batch.phase, log_teff, s_teff, compared, params)
     with np.errstate(invalid="ignore"):
         suspects = np.flatnonzero(result.deviation > params["threshold"])
@@ -122,7 +126,7 @@ def evaluate(batch: StarBatch, params: Params) -> Outcome:
             better = (retry.deviation < result.deviation[suspects]) & (
                 result.worst[suspects] < len(compared))  # a Teff-range failure stands
         rows = suspects[better]
-        for field in ("deviation", "observed", "expected", "worst"):
+        for field in ("deviation", "observed", "expected", "worst", "log_teff"):
             getattr(result, field)[rows] = getattr(retry, field)[better]
 
     applies = result.covered & ~np.isnan(result.deviation)
@@ -130,22 +134,51 @@ def evaluate(batch: StarBatch, params: Params) -> Outcome:
     with np.errstate(invalid="ignore"):
         failed = applies & (deviation > params["threshold"])
         beyond = deviation > params["error_threshold"]
-    pad = params["pad_dex"]
+    labels = [_LABELS[q] for q, _, _ in compared]
 
     def describe(rows: np.ndarray) -> list[str]:
         phases = [PHASE_CODES[c] for c in batch.phase[rows].tolist()]
         which = result.worst[rows].tolist()
+        teff_at = np.full(batch.size, np.nan)
+        with np.errstate(over="ignore"):  # a Teff of 1e308 K, shifted by its error
+            teff_at[rows] = np.power(10.0, result.log_teff[rows])
         return [
-            f"{phase} star at Teff {t:.0f} K has {names[k]} = {o:.2f}, "
-            f"{'above' if o > e else 'below'} the {phase} envelope's {e:.2f} near that "
-            f"Teff (with {pad:g} dex margin): {d:.1f} sigma"
-            for phase, k, (t, o, e, d) in zip(
-                phases, which, at_rows(rows, batch.values["teff"], result.observed,
-                                       result.expected, deviation), strict=True)
+            _message(phase, labels[k] if k < len(labels) else None, t, at, o, e, d, params)
+            for phase, k, (t, at, o, e, d) in zip(
+                phases, which, at_rows(rows, batch.values["teff"], teff_at,
+                                       result.observed, result.expected, deviation),
+                strict=True)
         ]
 
     return Outcome(failed, describe, result.observed, result.expected, deviation, applies,
                    beyond)
+
+
+def _message(phase: str, label: tuple[str, str] | None, teff: float, teff_at: float,
+             observed: float, edge: float, deviation: float, params: Params) -> str:
+    """One flag's message: which quantity lies outside which bound of the phase's envelope.
+
+    ``label`` is the quantity's name and unit, None when Teff itself is outside the
+    phase's Teff range (``observed`` and ``edge`` are then log Teff); ``teff_at`` is the
+    Teff the bound was taken at (the catalogued one, or the most favourable within
+    teff_sigmas of it).
+    """
+    side = "above" if observed > edge else "below"
+    if label is None:
+        extreme = "hottest" if observed > edge else "coolest"
+        return (f"{phase} star: Teff = {fmt(teff)} K is {side} the {extreme} Teff of the "
+                f"{phase} envelope, {fmt(10.0 ** edge)} K ({params['teff_pad_dex']:g} dex "
+                f"margin included): {deviation:.1f} sigma")
+    name, unit = label
+    bound = "upper" if observed > edge else "lower"
+    if math.isclose(teff_at, teff, rel_tol=1e-9):
+        where = "there"
+    else:
+        where = (f"even at Teff = {fmt(teff_at)} K, {params['teff_sigmas']:g} sigma "
+                 f"{'cooler' if teff_at < teff else 'hotter'}")
+    return (f"{phase} star at Teff = {fmt(teff)} K: {name} = {observed:.2f} {unit} is {side} "
+            f"the {phase} envelope: its {bound} bound is {edge:.2f} {unit} {where} "
+            f"({params['pad_dex']:g} dex margin included): {deviation:.1f} sigma")
 
 
 CHECK = Check(

@@ -35,7 +35,9 @@ DOC = Documentation(
     "to ~250 K) lie inside the Teff limit on purpose.",
     example="age = 20 Gyr with a 1 Gyr error is 6.2 Gyr above 13.787 Gyr (Planck 2018), "
     "6.2 sigma, and is flagged; 14.5 +- 1 Gyr is 0.7 sigma above and is not.",
-    references=("Limits and their sources are in each rule's params (`catcheck explain`).",),
+    references=("Each rule's params give its limits, the reason for each (min_reason, "
+                "max_reason: what a flag's message quotes) and their sources (source); "
+                "`catcheck explain RULE` prints them.",),
 )
 
 
@@ -95,11 +97,12 @@ def _outcome(params: Params, size: int, values: np.ndarray, candidates: np.ndarr
     def describe(rows: np.ndarray) -> list[str]:
         messages = []
         for value, s, limit in at_rows(rows, values, errors, expected):
-            side = "below the lower" if value < low else "above the upper"
+            side, reason = (("below the lower", params["min_reason"]) if value < low
+                            else ("above the upper", params["max_reason"]))
             error = f" +- {fmt(s)}" if s > 0 else ""
             messages.append(
                 f"{params['quantity']} = {fmt(value)}{error} {unit} is {side} limit "
-                f"{fmt(limit)} {unit} ({params['limit']})"
+                f"{fmt(limit)} {unit} ({reason})"
             )
         return messages
 
@@ -121,5 +124,5 @@ CHECK = Check(
     doc=DOC,
     uses_errors=False,
     defaults={"threshold": 3.0, "quantity": str, "min": float, "max": float, "unit": str,
-              "limit": str},
+              "min_reason": str, "max_reason": str, "source": str},
 )

@@ -16,6 +16,7 @@ from catcheck.checks.base import (
     combined_sigma,
     excess_sigma,
     fixed_needs,
+    fmt,
 )
 from catcheck.physics.spectral import (
     SCALE_NAMES,
@@ -167,8 +168,9 @@ def evaluate(batch: StarBatch, params: Params) -> Outcome:
         values = zip(*(np.asarray(c, dtype=float)[at].tolist() for c in columns),
                      chosen[at].tolist(), row_group[at].tolist(), strict=True)
         return [
-            f"{label} ({_GROUP_TEXT[group_k]}): Teff {t:.0f} K, but {_which(scale_k, group_k)} "
-            f"gives {e:.0f} K for this type ({lo:.0f}-{hi:.0f} K within {w:g} subtype); "
+            f"{label} ({_GROUP_TEXT[group_k]}): Teff {fmt(t)} K, but "
+            f"{_which(scale_k, group_k)} gives {e:.0f} K for this type ({lo:.0f}-{hi:.0f} K "
+            f"within {w:g} subtype); "
             f"{max(above, below):.2f} dex {'hotter' if above > 0 else 'cooler'}, "
             f"{dev:.1f} sigma (sigma {s:.3f} dex)"
             for label, (t, e, lo, hi, above, below, dev, s, w, scale_k, group_k)

@@ -13,6 +13,7 @@ from catcheck.checks.base import (
     at_rows,
     combined_sigma,
     fixed_needs,
+    fmt,
     sigma_deviation,
 )
 from catcheck.physics.stellar import LN10, log_luminosity_stefan_boltzmann_log
@@ -58,8 +59,8 @@ def evaluate(batch: StarBatch, params: Params) -> Outcome:
 
     def describe(rows: np.ndarray) -> list[str]:
         return [
-            f"log L = {o:.2f} dex(Lsun) but R = {r:.3g} Rsun and Teff = {t:.0f} K give "
-            f"{e:.2f}: off by {o - e:+.2f} dex, {d:.1f} sigma (sigma {s:.3f} dex)"
+            f"log L = {o:.2f} dex(Lsun) but R = {fmt(r)} Rsun and Teff = {fmt(t)} K give "
+            f"{e:.2f} dex(Lsun): off by {o - e:+.2f} dex, {d:.1f} sigma (sigma {s:.3f} dex)"
             for o, r, t, e, d, s in at_rows(rows, observed, radius, teff, expected, deviation,
                                             sigma)
         ]

@@ -13,6 +13,7 @@ from catcheck.checks.base import (
     at_rows,
     combined_sigma,
     fixed_needs,
+    fmt,
     sigma_deviation,
 )
 from catcheck.physics.stellar import LN10, log_surface_gravity_log
@@ -56,8 +57,8 @@ def evaluate(batch: StarBatch, params: Params) -> Outcome:
 
     def describe(rows: np.ndarray) -> list[str]:
         return [
-            f"log g = {g:.2f} but M = {m:.3g} Msun and R = {r:.3g} Rsun give {e:.2f} "
-            f"dex(cm/s2): off by {g - e:+.2f} dex, {d:.1f} sigma (sigma {s:.3f} dex)"
+            f"log g = {g:.2f} dex(cm/s2) but M = {fmt(m)} Msun and R = {fmt(r)} Rsun give "
+            f"{e:.2f} dex(cm/s2): off by {g - e:+.2f} dex, {d:.1f} sigma (sigma {s:.3f} dex)"
             for g, m, r, e, d, s in at_rows(rows, logg, mass, radius, expected, deviation,
                                             sigma)
         ]

@@ -10,8 +10,10 @@ blunders here are all about a column declared in the canonical unit itself (or, 
 luminosity, in its log), so the checks read canonical values.  Each check applies only
 when the profile declares the unit whose misuse it looks for: :func:`bind_declared_units`
 copies the declared unit into the rule's ``declared_unit`` param before a run (left
-empty, the canonical unit is assumed).  Once per column, the run's summary reports the
-evidence gathered over all rows (:mod:`catcheck.findings`).
+empty, the canonical unit is assumed), and a rule whose column is declared in another
+unit is reported as not run (``not-run: age declared in Myr (the rule is for yr)``).
+Once per column, the run's summary reports the evidence gathered over all rows
+(:mod:`catcheck.findings`).
 """
 
 from __future__ import annotations
@@ -60,9 +62,24 @@ class Blunder:
     suggest: Callable[[float, Params], str]
 
 
+def _other_unit(params: Params, blunder: Blunder) -> str | None:
+    """Why the rule cannot apply: its column is declared in a unit other than the one
+    whose misuse it looks for (None when the declared unit is the blunder's, or unknown)."""
+    declared = params["declared_unit"]
+    if declared in ("", blunder.declared_unit):
+        return None
+    return f"{blunder.quantity} declared in {declared} (the rule is for {blunder.declared_unit})"
+
+
+def _not_run_reason(blunder: Blunder) -> Callable[[Params], str | None]:
+    """A Check's ``not_run_reason`` for ``blunder``."""
+    return lambda params: _other_unit(params, blunder)
+
+
 def _applies(batch: StarBatch, params: Params, blunder: Blunder) -> np.ndarray | None:
-    """None (every row) when the declared unit is the blunder's, else no row."""
-    if params["declared_unit"] in ("", blunder.declared_unit):
+    """None (every row) when the declared unit is the blunder's, else no row (the engine
+    does not run such a rule at all; this keeps ``evaluate`` right on its own)."""
+    if _other_unit(params, blunder) is None:
         return None
     return np.zeros(batch.size, dtype=bool)
 
@@ -116,6 +133,7 @@ TEFF_LOG_AS_KELVIN = Check(
     doc=TEFF_DOC,
     defaults={"declared_unit": "", "min_teff": 2000.0, "max_teff": 250000.0},
     uses_errors=False,
+    not_run_reason=_not_run_reason(TEFF_BLUNDER),
 )
 
 
@@ -168,6 +186,7 @@ RADIUS_KM_AS_RSUN = Check(
     doc=RADIUS_DOC,
     defaults={"declared_unit": "", "max_radius": 3000.0},
     uses_errors=False,
+    not_run_reason=_not_run_reason(RADIUS_BLUNDER),
 )
 
 
@@ -177,35 +196,57 @@ LUMINOSITY_BLUNDER = Blunder("luminosity", "dex(Lsun)", lambda median, params: "
 
 LUMINOSITY_DOC = Documentation(
     what="Flags a log L declared in dex(Lsun) that is a linear luminosity in Lsun: either "
-    "it is above any star's log L while its log10 is an ordinary log L, or "
-    "Stefan-Boltzmann with the row's radius and Teff rejects it as a log but accepts its "
-    "log10.",
+    "it is above any star's log L while its log10 is an ordinary log L (an error), or "
+    "Stefan-Boltzmann with the row's radius and Teff rejects it as a log, accepts it as "
+    "linear, and puts it clearly further from the truth as a log than an ordinary log L "
+    "mistake would (a warning).  A value that fits Stefan-Boltzmann as a log is never "
+    "flagged.",
     why="'L' and 'log L' columns sit side by side in many tables; mapping the linear one "
     "with unit dex(Lsun) raises 10 to the power of a luminosity.  L, R and Teff of one "
     "star obey L = 4 pi R^2 sigma Teff^4, which tells the two readings apart wherever R "
-    "and Teff are given.",
+    "and Teff are given, except where a linear value and its log are close: a linear L of "
+    "0.14-1 Lsun reads, as a log, less than 1 dex from its true log L, which is what an "
+    "ordinary mistake in a log L (a distance off by a factor of 3, 2.5 mag of extinction "
+    "left uncorrected) also gives.  Only a log reading off by clearly more than that "
+    "tells a unit blunder from such a mistake.",
     formula="x = log L as catalogued (dex(Lsun)); log L_SB = 2 log R + 4 log(Teff/5772 K);\n"
     "sigma^2 = (2 s_R / (R ln10))^2 + (4 s_Teff / (Teff ln10))^2 + assumed_luminosity_dex^2, "
     "sigma >= floor_dex (the catalogue's own log L error is not used: it is in doubt with "
     "the column);\n"
-    "flag when max_log_luminosity < x <= 10^max_log_luminosity (beyond doubt: an error), "
-    "or when |x - log L_SB| > threshold sigma and |log10 x - log L_SB| <= agreement sigma;\n"
+    "as a log: z_log = |x - log L_SB| / sigma; as linear: z_lin = |log10 x - log L_SB| / "
+    "sigma;\n"
+    "never flagged when z_log <= threshold (the value fits as a log);\n"
+    "error when max_log_luminosity < x <= 10^max_log_luminosity (no star's log L, an "
+    "ordinary star's linear L);\n"
+    "warning when z_log > threshold, z_lin <= agreement (so the linear reading fits better "
+    "by at least threshold - agreement sigma) and x - log L_SB > ordinary_error_dex + "
+    "agreement * sigma (further off as a log than an ordinary log L mistake, by more than "
+    "the tolerance of a fit);\n"
     "observed = x, expected = log10 x (the log L if the unit is Lsun)\n"
     + DECLARED_UNIT_NOTE.format(unit="dex(Lsun)"),
-    caveats="A row flagged only through Stefan-Boltzmann (a warning) can be a real star "
-    "whose catalogued log L is wrong by chance by just the amount that makes its log10 "
-    "fit: `stefan-boltzmann` flags it too, and the summary's fraction of such rows tells "
-    "a column-wide blunder from coincidences.  Without radius and Teff only values above "
+    caveats="A linear L between ~0.1 and ~1.2 Lsun (x - log10 x <= 1 dex + 2 sigma, for "
+    "sigma 0.07 dex) is not flagged row by row through Stefan-Boltzmann: there a log L "
+    "wrong by an ordinary amount looks the same, so `stefan-boltzmann` flags the row "
+    "without naming a cause.  In a whole "
+    "column of linear values the other rows are flagged, and the summary's catalogue "
+    "finding names the unit.  Without radius and Teff only values above "
     "max_log_luminosity are recognised, so a linear column of faint stars (L < 10^7.5 "
-    "Lsun) goes unnoticed row by row.",
+    "Lsun) goes unnoticed row by row.  A row flagged through Stefan-Boltzmann alone can "
+    "still be a real star whose catalogued log L is wrong by more than ordinary_error_dex "
+    "by just the amount that makes its log10 fit: hence a warning.",
     example="log L = 2.0 dex(Lsun) where R = 1.2 Rsun and Teff = 5900 K (no errors given) "
-    "give log L_SB = 0.20 with sigma 0.075 dex: as a log it is 24 sigma off, read as "
-    "linear it is log L = 0.30, 1.4 sigma off: flagged (warning).  log L = 1.5e4 exceeds "
-    "10^7.5 Lsun as a log and reads as log L = 4.18 as linear: flagged (error).",
+    "give log L_SB = 0.20 with sigma 0.075 dex: as a log it is 1.8 dex (more than 1 + 2 x "
+    "0.075) and 24 sigma off, read as linear it is log L = 0.30, 1.4 sigma off: flagged "
+    "(warning).  log L = 0.544 with log L_SB = -0.26 fits as linear (log10 0.544 = -0.26) "
+    "but is only 0.80 dex off as a log: not flagged here (stefan-boltzmann flags it).  "
+    "log L = 1.5e4 exceeds 10^7.5 Lsun as a log and reads as log L = 4.18 as linear: "
+    "flagged (error).",
     references=("Stefan (1879); Boltzmann (1884): L = 4 pi R^2 sigma T^4",
                 "IAU 2015 Resolution B3 (nominal solar values)",
                 "Most luminous stars ~10^6.8 Lsun (PARSEC v1.2S, Bressan et al. 2012); "
-                "10^7.5 Lsun as in `luminosity-range`"),
+                "10^7.5 Lsun as in `luminosity-range`",
+                "ordinary_error_dex = 1 dex: a distance off by a factor of 10^0.5 = 3.2 or "
+                "2.5 mag of extinction (common practice)"),
 )
 
 
@@ -215,7 +256,6 @@ def evaluate_luminosity(batch: StarBatch, params: Params) -> Outcome:
     limit = params["max_log_luminosity"]
     with np.errstate(invalid="ignore", divide="ignore"):
         as_linear = np.log10(log_l)
-        beyond = (log_l > limit) & (as_linear <= limit)
     predicted = np.full(batch.size, np.nan)
     sigma = np.full(batch.size, np.nan)
     if "radius" in batch.values and "teff" in batch.values:
@@ -227,20 +267,27 @@ def evaluate_luminosity(batch: StarBatch, params: Params) -> Outcome:
             params["assumed_luminosity_dex"], floor=params["floor_dex"])
     with np.errstate(invalid="ignore"):
         off_as_log = np.abs(log_l - predicted) / sigma
-        fits_as_linear = np.abs(as_linear - predicted) <= params["agreement"] * sigma
-        by_relation = (off_as_log > params["threshold"]) & fits_as_linear
+        off_as_linear = np.abs(as_linear - predicted) / sigma
+        fits_as_log = off_as_log <= params["threshold"]  # False where R or Teff are missing
+        beyond = (log_l > limit) & (as_linear <= limit) & ~fits_as_log
+        by_relation = ((off_as_log > params["threshold"])
+                       & (off_as_linear <= params["agreement"])
+                       & (log_l - predicted - params["ordinary_error_dex"]
+                          > params["agreement"] * sigma))
     failed = beyond | by_relation
 
     def describe(rows: np.ndarray) -> list[str]:
         messages = []
-        for x, e, p, d in at_rows(rows, log_l, as_linear, predicted, off_as_log):
+        for x, e, p, d_log, d_lin in at_rows(rows, log_l, as_linear, predicted, off_as_log,
+                                             off_as_linear):
             text = (f"log L = {fmt(x)} dex(Lsun) reads as a linear luminosity: log L = "
-                    f"{e:.2f} if the unit is Lsun")
+                    f"{e:.2f} dex(Lsun) if the unit is Lsun")
             if x > limit:
-                text += f" (as a log it is above any star's, {fmt(limit)})"
+                text += f" (as a log it is above any star's, {fmt(limit)} dex(Lsun))"
             if p == p:  # Stefan-Boltzmann could judge the row
-                text += (f"; R and Teff give log L = {p:.2f} by Stefan-Boltzmann"
-                         + (f", {d:.0f} sigma from the value as a log" if d == d else ""))
+                text += (f"; R and Teff give log L = {p:.2f} dex(Lsun) by Stefan-Boltzmann: "
+                         f"{d_log:.0f} sigma from the value as a log, {d_lin:.1f} sigma as "
+                         "linear")
             messages.append(text)
         return messages
 
@@ -257,8 +304,10 @@ LUMINOSITY_LINEAR_AS_DEX = Check(
     evaluate=evaluate_luminosity,
     doc=LUMINOSITY_DOC,
     defaults={"declared_unit": "", "max_log_luminosity": 7.5, "threshold": 5.0,
-              "agreement": 2.0, **{k: STEFAN_BOLTZMANN.defaults[k] for k in _SB_ASSUMED}},
+              "agreement": 2.0, "ordinary_error_dex": 1.0,
+              **{k: STEFAN_BOLTZMANN.defaults[k] for k in _SB_ASSUMED}},
     escalates=True,
+    not_run_reason=_not_run_reason(LUMINOSITY_BLUNDER),
 )
 
 
@@ -329,6 +378,7 @@ AGE_SCALED_AS_YR = Check(
     defaults={"declared_unit": "", "min_age": 1e4, "max_age": 1.3787e10},
     uses_errors=False,
     escalates=True,
+    not_run_reason=_not_run_reason(AGE_BLUNDER),
 )
 
 #: check name -> the blunder it looks for
