@@ -92,11 +92,18 @@ def _age_outcome(batch: StarBatch, params: Params, applies: np.ndarray, log_limi
         beyond = deviation > params.get("error_threshold", np.inf)
 
     def describe(rows: np.ndarray) -> list[str]:
+        years = _power_of_ten(log_age[rows]), _power_of_ten(log_limit[rows])
         return [describe_row(*values)
-                for values in at_rows(rows, 10.0 ** log_age, 10.0 ** log_limit, deviation,
-                                      *extra)]
+                for values in at_rows(np.arange(len(rows)), *years, deviation[rows],
+                                      *(column[rows] for column in extra))]
 
     return Outcome(failed, describe, log_age, log_limit, np.abs(deviation), applies, beyond)
+
+
+def _power_of_ten(logs: np.ndarray) -> np.ndarray:
+    """10**logs for the few flagged rows a message needs (inf past the float range)."""
+    with np.errstate(over="ignore"):
+        return np.power(10.0, logs)
 
 
 def _years(age: float) -> str:
@@ -209,15 +216,15 @@ def evaluate_blue_straggler(batch: StarBatch, params: Params) -> Outcome:
         batch.size, dtype=bool)
     candidates = np.flatnonzero(phase_is(batch, "MS") & in_cluster)
 
-    def turnoff_and_slope(age: np.ndarray, feh: np.ndarray) -> tuple[np.ndarray, ...]:
+    def turnoff_and_slope(log_age: np.ndarray, feh: np.ndarray) -> tuple[np.ndarray, ...]:
         # members share their cluster's age and nearly its [M/H]: solve once per distinct
         # pair, [M/H] to 0.01 dex (changing the turn-off mass by < 0.1%)
-        pairs, inverse = np.unique(age + 1j * np.round(feh, 2), return_inverse=True)
-        turnoff = evolution.main_sequence_turnoff_mass(pairs.real, pairs.imag)
+        pairs, inverse = np.unique(log_age + 1j * np.round(feh, 2), return_inverse=True)
+        turnoff = evolution.main_sequence_turnoff_mass(10.0 ** pairs.real, pairs.imag)
         slope = evolution.log_main_sequence_lifetime_and_slope(turnoff, pairs.imag)[1]
         return turnoff[inverse], slope[inverse]
 
-    turnoff, slope = on_rows(candidates, batch.size, turnoff_and_slope, 10.0 ** log_age,
+    turnoff, slope = on_rows(candidates, batch.size, turnoff_and_slope, log_age,
                              metallicity(batch))
     with np.errstate(divide="ignore", invalid="ignore"):
         s_turnoff = batch.log_sigma("age", params["assumed_age_dex"]) / np.abs(slope)
@@ -233,7 +240,8 @@ def evaluate_blue_straggler(batch: StarBatch, params: Params) -> Outcome:
         return [
             f"MS member of {fmt(m)} Msun is above its cluster's turn-off mass {t:.3g} Msun "
             f"at {_years(a)}: {d:.1f} sigma (a blue straggler, a binary or a non-member)"
-            for m, t, a, d in at_rows(rows, mass, turnoff, 10.0 ** log_age, deviation)
+            for m, t, a, d in at_rows(np.arange(len(rows)), mass[rows], turnoff[rows],
+                                      _power_of_ten(log_age[rows]), deviation[rows])
         ]
 
     return Outcome(failed, describe, mass, turnoff, np.abs(deviation), applies)
