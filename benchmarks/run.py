@@ -168,6 +168,9 @@ def main() -> None:
         if not (folder / "catalogue.parquet").exists():
             write_demo(folder, rows=rows, seed=1)
         catalogue, profile = folder / "catalogue.parquet", folder / "profile.toml"
+        # untimed: bring the file into the page cache, so that no case (the scan first
+        # of all) pays for reading from disk what the next case finds in memory
+        run_case("scan", catalogue, profile, args, folder / "report")
         results = {}
         cases = ["scan", *(c for c in args.cases if c != "scan")]
         for case in cases:

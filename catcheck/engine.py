@@ -314,6 +314,7 @@ def _group_pass(rules: Sequence[Rule], profile: Profile,
         partial = GroupAccumulator(variables)
         for first_row, batch in pieces[index].batches(reading.columns, batch_rows):
             partial.add(canonical_batch(reading, batch, first_row, labels))
+        partial.settle()
         partial.variables = {}  # code, not state: only the samples go back
         return partial, list(labels.groups.code_of)  # this process's labels, in code order
 
