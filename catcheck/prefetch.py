@@ -10,7 +10,10 @@ where a catalogue cannot be cut into pieces.
 from __future__ import annotations
 
 import multiprocessing
+import os
+import pickle
 import queue
+import signal
 import threading
 from collections import deque
 from collections.abc import Callable, Iterable, Iterator
@@ -133,3 +136,59 @@ def forked_map(function: Callable[[int], R], count: int, workers: int) -> Iterat
 def _call_forked(index: int) -> object:
     assert _FORKED_FUNCTION is not None, "forked_map sets the function before forking"
     return _FORKED_FUNCTION(index)
+
+
+class ForkedCall:
+    """``function()`` run in a forked child process while this one goes on.
+
+    :meth:`result` waits for the child and returns what ``function`` returned (or raises
+    what it raised); :meth:`cancel` stops the child when the result is no longer wanted.
+    With ``fork`` False, or where processes cannot be forked, ``function`` runs when the
+    result is asked for.
+    Fork with no other thread of ours running: the child has only the calling thread.
+    """
+
+    def __init__(self, function: Callable[[], object], fork: bool = True) -> None:
+        self.function = function
+        self.pid = 0
+        if not (fork and can_fork()):
+            return
+        read_end, write_end = os.pipe()
+        pid = os.fork()
+        if pid == 0:  # the child: compute, send, and leave without running our cleanup
+            try:
+                os.close(read_end)
+                try:
+                    outcome = (True, function())
+                except BaseException as exc:  # handed to the parent, which re-raises it
+                    outcome = (False, exc)
+                with os.fdopen(write_end, "wb") as sink:
+                    pickle.dump(outcome, sink)
+            finally:
+                os._exit(0)
+        os.close(write_end)
+        self.pid, self.source = pid, os.fdopen(read_end, "rb")
+
+    def result(self) -> object:
+        """The child's result (waits for it)."""
+        if not self.pid:
+            return self.function()
+        try:
+            ok, value = pickle.load(self.source)
+        except EOFError:  # the child died without a word (killed, out of memory)
+            raise RuntimeError("a background process of catcheck ended unexpectedly") from None
+        finally:
+            self.source.close()
+            os.waitpid(self.pid, 0)
+            self.pid = 0
+        if not ok:
+            raise value
+        return value
+
+    def cancel(self) -> None:
+        """Stop the child (no-op once the result was taken)."""
+        if self.pid:
+            os.kill(self.pid, signal.SIGKILL)
+            self.source.close()
+            os.waitpid(self.pid, 0)
+            self.pid = 0

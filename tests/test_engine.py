@@ -262,3 +262,37 @@ def test_worker_processes_give_the_same_group_statistics(tmp_path) -> None:
     pd.testing.assert_frame_equal(one.flags, two.flags)
     for key in ("rules", "flagged_rows", "rows_by_severity", "unmapped_phase_labels"):
         assert one.summary[key] == two.summary[key]
+
+
+def test_repeated_ids_counted_in_a_forked_process_match(tmp_path, monkeypatch) -> None:
+    """Large catalogues count repeated ids beside the checks: the same summary entry."""
+    import catcheck.api as api
+
+    frame = sun_like(3000, seed=6)
+    frame.loc[[5, 17, 2999], "name"] = "dup"
+    path = write_catalogue(tmp_path, frame)
+    inline = catcheck.check(path, tmp_path / "profile.toml", rules=CORE)
+    monkeypatch.setattr(api, "BACKGROUND_ID_COUNT_ROWS", 0)
+    forked = catcheck.check(path, tmp_path / "profile.toml", rules=CORE)
+    assert forked.summary["duplicate_ids"] == inline.summary["duplicate_ids"]
+    assert forked.summary["duplicate_ids"]["rows_with_repeated_id"] == 3
+
+
+def test_forked_call_returns_raises_and_cancels() -> None:
+    from catcheck.errors import CatalogueError
+    from catcheck.prefetch import ForkedCall
+
+    assert ForkedCall(lambda: {"rows": 3}).result() == {"rows": 3}
+
+    def fail() -> None:
+        raise CatalogueError("cannot read", where="x.parquet")
+
+    with pytest.raises(CatalogueError, match="cannot read"):
+        ForkedCall(fail).result()
+    import time
+
+    slow = ForkedCall(lambda: time.sleep(30))
+    started = time.perf_counter()
+    slow.cancel()
+    assert time.perf_counter() - started < 5
+    assert ForkedCall(lambda: 7, fork=False).result() == 7
