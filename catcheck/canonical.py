@@ -182,7 +182,17 @@ class Labels:
 
 def canonical_batch(profile: Profile, batch: pa.RecordBatch, first_row: int,
                     labels: Labels) -> StarBatch:
-    """Convert one record batch to canonical units following the profile."""
+    """Convert one record batch to canonical units following the profile.
+
+    Values beyond the float range after conversion become inf (the range rules flag
+    them) without a floating-point warning.
+    """
+    with np.errstate(all="ignore"):
+        return _canonical_batch(profile, batch, first_row, labels)
+
+
+def _canonical_batch(profile: Profile, batch: pa.RecordBatch, first_row: int,
+                     labels: Labels) -> StarBatch:
     stars = StarBatch(first_row, batch.num_rows, pc.cast(batch[profile.id_column], pa.string()))
     if profile.group_column:
         stars.groups = batch[profile.group_column]

@@ -29,7 +29,8 @@ from catcheck.errors import (
 from catcheck.tuning import keep_freed_memory
 
 EPILOG = ("Exit codes: 0 gate passed; 1 gate failed; 2 usage, profile or rule-pack error; "
-          "3 catalogue missing or unreadable.")
+          "3 catalogue missing or unreadable; 130 interrupted (Ctrl-C); 143 terminated "
+          "(SIGTERM).")
 
 
 @click.group(epilog=EPILOG)

@@ -345,12 +345,18 @@ class BatchChecker:
         self.schema = RangeSchema(ranges) if ranges else None
 
     def check(self, stars: StarBatch) -> BatchResult:
-        """Counts per rule and the batch's flags sorted by (row, rule order)."""
-        outcomes = self.schema.validate(stars) if self.schema else {}
+        """Counts per rule and the batch's flags sorted by (row, rule order).
+
+        Floating-point warnings (overflow, division by zero, NaN compared) are silenced:
+        extreme and missing values are data, which the rules test explicitly.
+        """
+        with np.errstate(all="ignore"):
+            outcomes = self.schema.validate(stars) if self.schema else {}
         tallies, tables = [], []
         for rule in self.rules:
-            outcome = outcomes.get(rule.id) or rule.check.evaluate(stars, rule.params)
-            tally, table = _tally(rule, stars, outcome)
+            with np.errstate(all="ignore"):
+                outcome = outcomes.get(rule.id) or rule.check.evaluate(stars, rule.params)
+                tally, table = _tally(rule, stars, outcome)
             tallies.append(tally)
             if table is not None:
                 tables.append(table)

@@ -252,7 +252,9 @@ class GroupAccumulator:
         codes = batch.group_codes
         hashes = row_hash(np.arange(batch.first_row, batch.first_row + len(codes)))
         for name, variable in self.variables.items():
-            self.samples[name].add(codes, hashes, np.asarray(variable(batch), dtype=float))
+            with np.errstate(all="ignore"):  # extreme values are data here too
+                values = np.asarray(variable(batch), dtype=float)
+            self.samples[name].add(codes, hashes, values)
 
     def merge(self, other: GroupAccumulator, codes: np.ndarray) -> None:
         """Take in ``other``'s state, accumulated over rows after all of this one's.

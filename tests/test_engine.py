@@ -296,3 +296,19 @@ def test_forked_call_returns_raises_and_cancels() -> None:
     slow.cancel()
     assert time.perf_counter() - started < 5
     assert ForkedCall(lambda: 7, fork=False).result() == 7
+
+
+def test_extreme_values_raise_no_floating_point_warnings() -> None:
+    """Overflowing, zero and infinite values are data: flagged, never a RuntimeWarning."""
+    import warnings
+
+    frame = sun_like(20)
+    frame.loc[0, "Teff"] = 1e308
+    frame.loc[1, "logL"] = 400.0
+    frame.loc[2, "Rad"] = -5.0
+    frame.loc[3, "Teff"] = 0.0
+    frame.loc[4, "Age"] = np.inf
+    with warnings.catch_warnings():
+        warnings.simplefilter("error", RuntimeWarning)
+        result = catcheck.check_frame(frame, PROFILE)
+    assert set(result.flags["row"]) >= {0, 1, 2, 3, 4}

@@ -133,12 +133,13 @@ def _timescale_outcome(batch: StarBatch, params: Params, rows: np.ndarray,
 
 def evaluate_ms_lifetime(batch: StarBatch, params: Params) -> Outcome:
     """Main-sequence stars older than the main-sequence lifetime of their mass."""
-    mass, _ = lifetime_mass(batch)
+    mass, initial = lifetime_mass(batch)
     return _timescale_outcome(
         batch, params, phase_is(batch, "MS"), evolution.log_main_sequence_lifetime_and_slope,
-        mass, older=True, describe_row=lambda age, limit, dev, m: (
-            f"MS star of {fmt(m)} Msun is {_years(age)} old, but stars of that mass leave the "
-            f"main sequence at {_years(limit)}: {dev:.1f} sigma"))
+        mass, older=True, describe_row=lambda age, limit, dev, m, given: (
+            f"MS star of {'initial' if given else 'present'} mass {fmt(m)} Msun is "
+            f"{_years(age)} old, but stars of that mass leave the main sequence at "
+            f"{_years(limit)}: {dev:.1f} sigma"), extra=(initial,))
 
 
 # --- evolved-too-young ---------------------------------------------------------------------
