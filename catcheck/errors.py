@@ -91,3 +91,7 @@ class Interrupted(BaseException):
     def exit_code(self) -> int:
         """The shell's convention for a process ended by a signal."""
         return 128 + self.signum
+
+
+class WorkerLostError(CatcheckError):
+    """A worker process died during the run (killed, or out of memory)."""

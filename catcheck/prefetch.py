@@ -9,6 +9,7 @@ where a catalogue cannot be cut into pieces.
 
 from __future__ import annotations
 
+import contextlib
 import multiprocessing
 import os
 import pickle
@@ -17,8 +18,10 @@ import signal
 import threading
 from collections import deque
 from collections.abc import Callable, Iterable, Iterator
-from concurrent.futures import Executor, Future, ProcessPoolExecutor, ThreadPoolExecutor
-from typing import TypeVar
+from concurrent.futures import Executor, Future, ThreadPoolExecutor
+from typing import BinaryIO, TypeVar
+
+from catcheck.errors import WorkerLostError
 
 T = TypeVar("T")
 R = TypeVar("R")
@@ -106,9 +109,6 @@ def _in_order(pool: Executor, function: Callable[[T], R], items: Iterable[T], wi
             future.cancel()
 
 
-_FORKED_FUNCTION: Callable[[int], object] | None = None
-
-
 def can_fork() -> bool:
     """True where worker processes can be forked (Linux, and Unix generally)."""
     return "fork" in multiprocessing.get_all_start_methods()
@@ -117,25 +117,72 @@ def can_fork() -> bool:
 def forked_map(function: Callable[[int], R], count: int, workers: int) -> Iterator[R]:
     """``function(0), ..., function(count - 1)`` in ``workers`` forked processes, in order.
 
-    The processes are forked when this starts, so ``function`` and everything it reads
-    (profile, rules, group statistics) are inherited, never pickled: only the index goes
-    to a worker and only the (picklable) result comes back.  At most ``2 * workers`` calls
-    are in flight, so memory stays bounded however large ``count`` is.  Call it with no
+    Worker ``w`` computes the indices ``w, w + workers, ...`` and sends each result down
+    its own pipe; results are read here in index order.  ``function`` and everything it
+    reads (profile, rules, group statistics) are inherited by the fork, never pickled;
+    only results travel, and a worker waits while its pipe is full, so memory stays
+    bounded.  Workers ignore SIGINT and die on SIGTERM (the signal reaches them with the
+    whole process group): this process alone decides what an interrupt means, and kills
+    and reaps them whenever it stops reading (done, error, interrupt).  A worker that
+    dies (out of memory, killed) ends the run with one clear error.  Call it with no
     other thread of ours running: a fork copies only the calling thread.
     """
-    global _FORKED_FUNCTION
-    _FORKED_FUNCTION = function
-    context = multiprocessing.get_context("fork")
+    children: list[tuple[int, BinaryIO]] = []
     try:
-        with ProcessPoolExecutor(max_workers=workers, mp_context=context) as pool:
-            yield from _in_order(pool, _call_forked, range(count), 2 * workers)
+        for worker in range(min(workers, count)):
+            read_end, write_end = os.pipe()
+            pid = os.fork()
+            if pid == 0:  # the worker: compute its indices, send each result, leave
+                try:
+                    _become_worker()
+                    for _, source in children:
+                        source.close()
+                    os.close(read_end)
+                    with os.fdopen(write_end, "wb") as sink:
+                        for index in range(worker, count, workers):
+                            try:
+                                outcome = (True, function(index))
+                            except BaseException as exc:  # re-raised by the parent
+                                outcome = (False, exc)
+                            pickle.dump(outcome, sink)
+                            sink.flush()
+                            if not outcome[0]:
+                                break
+                finally:
+                    os._exit(0)
+            os.close(write_end)
+            children.append((pid, os.fdopen(read_end, "rb")))
+        for index in range(count):
+            ok, value = _receive(children[index % len(children)][1])
+            if not ok:
+                raise value
+            yield value
     finally:
-        _FORKED_FUNCTION = None
+        for pid, source in children:
+            _stop(pid)
+            source.close()
 
 
-def _call_forked(index: int) -> object:
-    assert _FORKED_FUNCTION is not None, "forked_map sets the function before forking"
-    return _FORKED_FUNCTION(index)
+def _become_worker() -> None:
+    """Signals in a worker: Ctrl-C is the parent's to handle, SIGTERM ends it quietly."""
+    signal.signal(signal.SIGINT, signal.SIG_IGN)
+    signal.signal(signal.SIGTERM, signal.SIG_DFL)
+
+
+def _receive(source: BinaryIO) -> tuple[bool, object]:
+    try:
+        return pickle.load(source)
+    except EOFError:
+        raise WorkerLostError("a worker process ended unexpectedly (out of memory, or killed)",
+                         fix="try fewer --workers or a smaller --batch-rows") from None
+
+
+def _stop(pid: int) -> None:
+    """Kill a child process (if it still runs) and reap it."""
+    with contextlib.suppress(ProcessLookupError):
+        os.kill(pid, signal.SIGKILL)
+    with contextlib.suppress(ChildProcessError):
+        os.waitpid(pid, 0)
 
 
 class ForkedCall:
@@ -157,6 +204,7 @@ class ForkedCall:
         pid = os.fork()
         if pid == 0:  # the child: compute, send, and leave without running our cleanup
             try:
+                _become_worker()
                 os.close(read_end)
                 try:
                     outcome = (True, function())
@@ -174,12 +222,10 @@ class ForkedCall:
         if not self.pid:
             return self.function()
         try:
-            ok, value = pickle.load(self.source)
-        except EOFError:  # the child died without a word (killed, out of memory)
-            raise RuntimeError("a background process of catcheck ended unexpectedly") from None
+            ok, value = _receive(self.source)
         finally:
             self.source.close()
-            os.waitpid(self.pid, 0)
+            _stop(self.pid)
             self.pid = 0
         if not ok:
             raise value
@@ -188,7 +234,6 @@ class ForkedCall:
     def cancel(self) -> None:
         """Stop the child (no-op once the result was taken)."""
         if self.pid:
-            os.kill(self.pid, signal.SIGKILL)
+            _stop(self.pid)
             self.source.close()
-            os.waitpid(self.pid, 0)
             self.pid = 0

@@ -312,3 +312,29 @@ def test_extreme_values_raise_no_floating_point_warnings() -> None:
         warnings.simplefilter("error", RuntimeWarning)
         result = catcheck.check_frame(frame, PROFILE)
     assert set(result.flags["row"]) >= {0, 1, 2, 3, 4}
+
+
+def test_forked_map_orders_results_and_reports_dead_or_failing_workers() -> None:
+    import os
+    import signal
+
+    from catcheck.errors import CatalogueError, WorkerLostError
+    from catcheck.prefetch import forked_map
+
+    assert list(forked_map(lambda i: i * i, 7, 3)) == [0, 1, 4, 9, 16, 25, 36]
+
+    def dies_at_three(i: int) -> int:
+        if i == 3:
+            os.kill(os.getpid(), signal.SIGKILL)  # as the out-of-memory killer would
+        return i
+
+    with pytest.raises(WorkerLostError, match="ended unexpectedly"):
+        list(forked_map(dies_at_three, 6, 2))
+
+    def unreadable_at_two(i: int) -> int:
+        if i == 2:
+            raise CatalogueError("cannot read the catalogue", where="part-2.parquet")
+        return i
+
+    with pytest.raises(CatalogueError, match=r"part-2\.parquet"):
+        list(forked_map(unreadable_at_two, 6, 2))
