@@ -31,8 +31,8 @@ from catcheck.formats import open_catalogue
 from catcheck.gate import Gate, severity_counts
 from catcheck.html_report import VisualReport
 from catcheck.identifiers import duplicate_ids
-from catcheck.junit import junit_xml, write_junit
-from catcheck.outputs import ReportDirectory, read_flags
+from catcheck.junit import check_junit_path, junit_xml, write_junit
+from catcheck.outputs import ReportDirectory, read_flags, refuse_inputs_among_outputs
 from catcheck.packs import DEFAULT_PACKS, load_rules
 from catcheck.prefetch import ForkedCall
 from catcheck.profile import Profile, load_profile
@@ -207,6 +207,10 @@ def _run(catalogue: Catalogue, profile: PathLike | Profile,
         progress.start(catalogue.num_rows)
     row_outputs = RowOutputs.plan(catalogue, [rule.id for rule in loaded],
                                   annotate=annotate, split=split)
+    if out is not None:
+        refuse_inputs_among_outputs(out, _input_files(catalogue))
+    if junit is not None:
+        check_junit_path(junit)
     repeated_ids = _count_repeated_ids(catalogue, profile)
     try:
         if out is None:
@@ -249,6 +253,15 @@ def _run(catalogue: Catalogue, profile: PathLike | Profile,
         return CheckResult(summary, written[f"flags.{flags_format}"])  # read only when asked
     finally:
         repeated_ids.cancel()
+
+
+def _input_files(catalogue: Any) -> list[Path]:
+    """The files a catalogue reads (none for an in-memory table)."""
+    if hasattr(catalogue, "parts"):  # a joined catalogue (formats.JoinedCatalogue)
+        return [f for part in catalogue.parts for f in _input_files(part.catalogue)]
+    if hasattr(catalogue, "files"):
+        return list(catalogue.files)
+    return [catalogue.path] if hasattr(catalogue, "path") else []
 
 
 #: catalogues at least this long have their ids counted in a forked process during the run

@@ -19,6 +19,7 @@ included; characters XML 1.0 forbids are replaced by U+FFFD) and written atomica
 
 from __future__ import annotations
 
+import contextlib
 import os
 import re
 import xml.etree.ElementTree as ET
@@ -26,7 +27,7 @@ from collections.abc import Mapping, Sequence
 from pathlib import Path
 from typing import Any
 
-from catcheck.errors import OutputError
+from catcheck.errors import OutputError, UsageError
 from catcheck.gate import COUNTED_SEVERITIES, severity_counts
 
 SUITE_NAME = "catcheck"
@@ -69,6 +70,16 @@ def junit_xml(summary: Mapping[str, Any], examples: Examples,
     return ET.tostring(root, encoding="utf-8", xml_declaration=True) + b"\n"
 
 
+def check_junit_path(path: str | Path) -> None:
+    """Before a run: refuse a --junit path that cannot be written (a directory, or under a
+    file), so that the run does not replace its report and then fail."""
+    path = Path(path)
+    parent = next((p for p in path.parents if p.exists()), Path("."))
+    if path.is_dir() or not parent.is_dir() or not os.access(parent, os.W_OK):
+        raise UsageError("cannot write the JUnit report there", where=str(path),
+                         fix="give --junit a file path in a writable directory")
+
+
 def write_junit(path: str | Path, document: bytes) -> Path:
     """Write ``document`` to ``path`` atomically (a temporary file beside it, then
     :func:`os.replace`); the parent directory is created if needed."""
@@ -79,7 +90,8 @@ def write_junit(path: str | Path, document: bytes) -> Path:
         tmp.write_bytes(document)
         os.replace(tmp, path)
     except OSError as exc:
-        tmp.unlink(missing_ok=True)
+        with contextlib.suppress(OSError):
+            tmp.unlink(missing_ok=True)
         raise OutputError(f"cannot write the JUnit report: {exc.strerror or exc}",
                           where=str(path), fix="choose a writable path with --junit") from None
     return path

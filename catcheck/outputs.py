@@ -34,6 +34,23 @@ OPTIONAL_FILES = ("annotated.parquet", "clean.parquet", "flagged.parquet",
                   "report.html", "hr_diagram.png", "kiel_diagram.png")
 
 
+def refuse_inputs_among_outputs(out_dir: str | Path, inputs: Sequence[Path]) -> None:
+    """Stop before a run whose report would overwrite or remove one of its own inputs.
+
+    A report directory holds files catcheck writes, replaces and (when not asked for
+    again) removes: checking ``report/clean.parquet`` into ``report/`` would lose it.
+    """
+    out = Path(out_dir).resolve()
+    managed = {f"flags.{name}" for name in FORMATS} | {"summary.json", "report.md",
+                                                        *OPTIONAL_FILES}
+    for path in inputs:
+        path = Path(path).resolve()
+        if path.parent == out and path.name in managed:
+            raise UsageError("the catalogue is a file of the report directory, which this "
+                             "run would replace or remove", where=str(path),
+                             fix="copy it elsewhere or choose another --out")
+
+
 class ReportDirectory:
     """A staging area that becomes the report in ``out_dir`` on :meth:`commit`."""
 

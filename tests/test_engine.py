@@ -338,3 +338,30 @@ def test_forked_map_orders_results_and_reports_dead_or_failing_workers() -> None
 
     with pytest.raises(CatalogueError, match=r"part-2\.parquet"):
         list(forked_map(unreadable_at_two, 6, 2))
+
+
+def test_a_catalogue_inside_the_report_directory_is_refused(tmp_path) -> None:
+    """Re-checking report/clean.parquet into report/ would replace or remove the input."""
+    from catcheck.errors import UsageError
+
+    frame = sun_like(50)
+    report = tmp_path / "report"
+    report.mkdir()
+    path = write_catalogue(report, frame, name="clean.parquet")
+    before = path.read_bytes()
+    with pytest.raises(UsageError, match="report directory"):
+        catcheck.check(path, report / "profile.toml", rules=CORE, out=report)
+    assert path.read_bytes() == before
+    other = write_catalogue(report, frame, name="stars.parquet")  # not a report file: fine
+    assert catcheck.check(other, report / "profile.toml", rules=CORE, out=report).passed
+
+
+def test_an_unwritable_junit_path_is_refused_before_the_run(tmp_path) -> None:
+    from catcheck.errors import UsageError
+
+    path = write_catalogue(tmp_path, sun_like(20))
+    (tmp_path / "afile").write_text("not a directory")
+    with pytest.raises(UsageError, match="JUnit"):
+        catcheck.check(path, tmp_path / "profile.toml", rules=CORE, out=tmp_path / "r",
+                       junit=tmp_path / "afile" / "x.xml")
+    assert not (tmp_path / "r").exists()
