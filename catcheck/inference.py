@@ -48,7 +48,6 @@ from __future__ import annotations
 
 import dataclasses
 import math
-import os
 import re
 import textwrap
 from collections.abc import Iterable, Mapping, Sequence
@@ -62,8 +61,9 @@ import pyarrow.compute as pc
 from numpy.typing import NDArray
 
 from catcheck.engine import Catalogue
-from catcheck.errors import OutputError, ProfileError
+from catcheck.errors import ProfileError
 from catcheck.formats import column_metadata
+from catcheck.outputs import write_file_atomically
 from catcheck.physics.spectral import TypeKind, parse_mk
 from catcheck.physics.stellar import log_luminosity_stefan_boltzmann, log_surface_gravity
 from catcheck.quantities import PHASE_CODES, QUANTITIES
@@ -1510,17 +1510,7 @@ def _target_lines(key: str, mapping: ProposedMapping) -> list[str]:
 
 def write_proposal(path: str | Path, text: str) -> Path:
     """Write a proposal to ``path`` atomically (a temporary file beside it, then rename)."""
-    path = Path(path)
-    tmp = path.parent / f".{path.name}.{os.getpid()}.tmp"
-    try:
-        path.parent.mkdir(parents=True, exist_ok=True)
-        tmp.write_text(text, encoding="utf-8")
-        os.replace(tmp, path)
-    except OSError as exc:
-        tmp.unlink(missing_ok=True)
-        raise OutputError(f"cannot write the profile: {exc.strerror or exc}", where=str(path),
-                          fix="choose a writable path with --out") from None
-    return path
+    return write_file_atomically(path, text.encode("utf-8"), "profile", "--out")
 
 
 __all__ = [

@@ -19,7 +19,6 @@ included; characters XML 1.0 forbids are replaced by U+FFFD) and written atomica
 
 from __future__ import annotations
 
-import contextlib
 import os
 import re
 import xml.etree.ElementTree as ET
@@ -27,8 +26,9 @@ from collections.abc import Mapping, Sequence
 from pathlib import Path
 from typing import Any
 
-from catcheck.errors import OutputError, UsageError
+from catcheck.errors import UsageError
 from catcheck.gate import COUNTED_SEVERITIES, severity_counts
+from catcheck.outputs import write_file_atomically
 
 SUITE_NAME = "catcheck"
 VERDICT_CLASSNAME = "catcheck.gate"
@@ -83,18 +83,7 @@ def check_junit_path(path: str | Path) -> None:
 def write_junit(path: str | Path, document: bytes) -> Path:
     """Write ``document`` to ``path`` atomically (a temporary file beside it, then
     :func:`os.replace`); the parent directory is created if needed."""
-    path = Path(path)
-    tmp = path.parent / f".{path.name}.{os.getpid()}.tmp"
-    try:
-        path.parent.mkdir(parents=True, exist_ok=True)
-        tmp.write_bytes(document)
-        os.replace(tmp, path)
-    except OSError as exc:
-        with contextlib.suppress(OSError):
-            tmp.unlink(missing_ok=True)
-        raise OutputError(f"cannot write the JUnit report: {exc.strerror or exc}",
-                          where=str(path), fix="choose a writable path with --junit") from None
-    return path
+    return write_file_atomically(path, document, "JUnit report", "--junit")
 
 
 def _rule_case(rule: Mapping[str, Any], failing: int, fail_on: str,

@@ -10,6 +10,7 @@ never mixes two runs.
 
 from __future__ import annotations
 
+import contextlib
 import json
 import os
 import shutil
@@ -32,6 +33,27 @@ FORMATS = ("parquet", "csv", "jsonl")
 OPTIONAL_FILES = ("annotated.parquet", "clean.parquet", "flagged.parquet",
                   # the visual report (plot extra; a figure needs its quantities)
                   "report.html", "hr_diagram.png", "kiel_diagram.png")
+
+
+def write_file_atomically(path: str | Path, data: bytes, what: str, option: str) -> Path:
+    """Write ``data`` to ``path`` through a temporary file beside it and :func:`os.replace`.
+
+    The parent directory is created if needed.  A failure leaves ``path`` as it was and
+    becomes one :class:`OutputError` naming ``what`` was being written and the ``option``
+    that chose the path.
+    """
+    path = Path(path)
+    tmp = path.parent / f".{path.name}.{os.getpid()}.tmp"
+    try:
+        path.parent.mkdir(parents=True, exist_ok=True)
+        tmp.write_bytes(data)
+        os.replace(tmp, path)
+    except OSError as exc:
+        with contextlib.suppress(OSError):
+            tmp.unlink(missing_ok=True)
+        raise OutputError(f"cannot write the {what}: {exc.strerror or exc}", where=str(path),
+                          fix=f"choose a writable path with {option}") from None
+    return path
 
 
 def refuse_inputs_among_outputs(out_dir: str | Path, inputs: Sequence[Path]) -> None:
