@@ -23,6 +23,7 @@ from catcheck.baseline import (
     summary_entry,
 )
 from catcheck.checks.unit_blunders import bind_declared_units
+from catcheck.concurrency import ForkedCall
 from catcheck.engine import Catalogue, RunStats, run_rules
 from catcheck.errors import UsageError
 from catcheck.findings import FlagStatistics, catalogue_findings
@@ -34,7 +35,6 @@ from catcheck.identifiers import duplicate_ids
 from catcheck.junit import check_junit_path, junit_xml, write_junit
 from catcheck.outputs import ReportDirectory, read_flags, refuse_inputs_among_outputs
 from catcheck.packs import DEFAULT_PACKS, load_rules
-from catcheck.prefetch import ForkedCall
 from catcheck.profile import Profile, load_profile
 from catcheck.progress import SizedProgress
 from catcheck.reader import DEFAULT_BATCH_ROWS

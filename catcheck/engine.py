@@ -30,10 +30,10 @@ from catcheck.canonical import (
 )
 from catcheck.checks.base import Outcome
 from catcheck.checks.physical_range import RangeSchema
+from catcheck.concurrency import can_fork, forked_map, ordered_map, prefetch
 from catcheck.flags import flag_records
 from catcheck.groups import GroupAccumulator, GroupSummary, GroupVariable
 from catcheck.packs import SEVERITY_RANK, Rule
-from catcheck.prefetch import can_fork, forked_map, ordered_map, prefetch
 from catcheck.profile import Profile
 from catcheck.quantities import QUANTITIES
 

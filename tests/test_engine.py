@@ -279,8 +279,8 @@ def test_repeated_ids_counted_in_a_forked_process_match(tmp_path, monkeypatch) -
 
 
 def test_forked_call_returns_raises_and_cancels() -> None:
+    from catcheck.concurrency import ForkedCall
     from catcheck.errors import CatalogueError
-    from catcheck.prefetch import ForkedCall
 
     assert ForkedCall(lambda: {"rows": 3}).result() == {"rows": 3}
 
@@ -318,8 +318,8 @@ def test_forked_map_orders_results_and_reports_dead_or_failing_workers() -> None
     import os
     import signal
 
+    from catcheck.concurrency import forked_map
     from catcheck.errors import CatalogueError, WorkerLostError
-    from catcheck.prefetch import forked_map
 
     assert list(forked_map(lambda i: i * i, 7, 3)) == [0, 1, 4, 9, 16, 25, 36]
 
