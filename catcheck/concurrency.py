@@ -18,7 +18,7 @@ import signal
 import threading
 from collections import deque
 from collections.abc import Callable, Iterable, Iterator
-from concurrent.futures import Executor, Future, ThreadPoolExecutor
+from concurrent.futures import Future, ThreadPoolExecutor
 from typing import BinaryIO, TypeVar
 
 from catcheck.errors import WorkerLostError
@@ -89,24 +89,18 @@ def ordered_map(function: Callable[[T], R], items: Iterable[T], workers: int = 1
     if workers <= 1:
         yield from map(function, items)
         return
-    with ThreadPoolExecutor(max_workers=workers, thread_name_prefix="catcheck-check") as pool:
-        yield from _in_order(pool, function, items, workers + 1)
-
-
-def _in_order(pool: Executor, function: Callable[[T], R], items: Iterable[T], window: int
-              ) -> Iterator[R]:
-    """Results of ``function`` over ``items`` from ``pool``, in order, ``window`` in flight."""
     pending: deque[Future[R]] = deque()
-    try:
-        for item in items:
-            pending.append(pool.submit(function, item))
-            if len(pending) >= window:
+    with ThreadPoolExecutor(max_workers=workers, thread_name_prefix="catcheck-check") as pool:
+        try:
+            for item in items:
+                pending.append(pool.submit(function, item))
+                if len(pending) > workers:
+                    yield pending.popleft().result()
+            while pending:
                 yield pending.popleft().result()
-        while pending:
-            yield pending.popleft().result()
-    finally:
-        for future in pending:
-            future.cancel()
+        finally:
+            for future in pending:
+                future.cancel()
 
 
 def can_fork() -> bool:
