@@ -60,14 +60,16 @@ class StarBatch:
         return self._has[quantity]
 
     def has_all(self, quantities: Sequence[str]) -> np.ndarray:
-        """Rows where every one of ``quantities`` has a usable value (a new array)."""
+        """Rows where every one of ``quantities`` has a usable value (computed once per
+        combination; read-only)."""
         key = tuple(sorted(quantities))
         if key not in self._has:
             present = np.ones(self.size, dtype=bool)
             for quantity in key:
                 present &= self.has(quantity)
+            present.flags.writeable = False
             self._has[key] = present
-        return self._has[key].copy()
+        return self._has[key]
 
     def missing_error(self, quantity: str) -> np.ndarray:
         """Rows where the catalogue's 1-sigma of ``quantity`` is missing (computed once)."""

@@ -369,24 +369,24 @@ class BatchChecker:
 def _tally(rule: Rule, stars: StarBatch, outcome: Outcome) -> tuple[RuleTally, pa.Table | None]:
     """One rule's counts on a batch, and its flag records (None if it flagged no row)."""
     available = stars.has_all(rule.row_needs)
+    checked = int(np.count_nonzero(available))
     not_applicable = 0
     if outcome.applies is not None:
-        not_applicable = int((available & ~outcome.applies).sum())
-        available &= outcome.applies
-    checked = int(available.sum())
+        available = available & outcome.applies
+        applicable = int(np.count_nonzero(available))
+        not_applicable, checked = checked - applicable, applicable
     assumed = _assumed_errors(rule.needs, stars, available) if rule.check.uses_errors else []
     positions = np.flatnonzero(outcome.failed & available)
     tally = RuleTally(checked, stars.size - checked, not_applicable, len(positions), assumed)
     if not len(positions):
         return tally, None
-    severity = np.full(len(positions), rule.severity, dtype=object)
+    escalate = None
     if outcome.beyond_doubt is not None and rule.severity == "warning":
         escalate = outcome.beyond_doubt[positions]
-        severity[escalate] = "error"
         tally.escalated = int(escalate.sum())
-    table = flag_records(rule.id, severity, stars.first_row, positions, stars.ids,
+    table = flag_records(rule.id, rule.severity, stars.first_row, positions, stars.ids,
                          outcome.describe(positions), outcome.observed, outcome.expected,
-                         outcome.deviation)
+                         outcome.deviation, escalate)
     return tally, table
 
 

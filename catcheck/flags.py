@@ -21,15 +21,19 @@ FLAG_SCHEMA = pa.schema(
 )
 
 
-def flag_records(rule_id: str, severity: str | np.ndarray, first_row: int,
-                 positions: np.ndarray,
+def flag_records(rule_id: str, severity: str, first_row: int, positions: np.ndarray,
                  ids: pa.Array, messages: Sequence[str], observed: np.ndarray | None,
-                 expected: np.ndarray | None, deviation: np.ndarray | None) -> pa.Table:
+                 expected: np.ndarray | None, deviation: np.ndarray | None,
+                 escalated: np.ndarray | None = None) -> pa.Table:
     """Flag records of one rule for the given positions within a batch.
 
-    ``severity`` is the rule's, or one per position where a check escalates some flags.
+    ``severity`` is the rule's; where ``escalated`` (a mask over the positions) is true,
+    the flag is an error instead (a check that escalates flags beyond doubt).
     """
     n = len(positions)
+    severities = pa.array([severity, "error"], pa.string())
+    severity_codes = np.zeros(n, dtype=np.int8) if escalated is None else escalated.astype(
+        np.int8)
 
     def pick(values: np.ndarray | None) -> np.ndarray:
         if values is None:
@@ -40,8 +44,8 @@ def flag_records(rule_id: str, severity: str | np.ndarray, first_row: int,
         [
             pa.array(positions.astype(np.int64) + first_row, pa.int64()),
             ids.take(pa.array(positions)),
-            pa.array(np.full(n, rule_id, dtype=object), pa.string()),
-            pa.array(np.broadcast_to(np.asarray(severity, dtype=object), (n,)), pa.string()),
+            repeated(rule_id, n),
+            severities.take(pa.array(severity_codes)),
             pa.array(messages, pa.string()),
             pa.array(pick(observed), pa.float64()),
             pa.array(pick(expected), pa.float64()),
@@ -49,3 +53,9 @@ def flag_records(rule_id: str, severity: str | np.ndarray, first_row: int,
         ],
         schema=FLAG_SCHEMA,
     )
+
+
+def repeated(text: str, n: int) -> pa.Array:
+    """A string array of ``n`` copies of ``text`` (a gather: far cheaper than building
+    ``n`` Python strings)."""
+    return pa.array([text], pa.string()).take(pa.array(np.zeros(n, dtype=np.int8)))
