@@ -14,12 +14,14 @@ same bytes.
 from __future__ import annotations
 
 import base64
+import functools
 import html
 import importlib.util
 import math
 from collections.abc import Mapping, Sequence
 from typing import TYPE_CHECKING, Any
 
+from catcheck.concurrency import ForkedCall
 from catcheck.diagrams import (
     HR_DIAGRAM,
     KIEL_DIAGRAM,
@@ -111,8 +113,21 @@ class VisualReport:
         flagged = {r["id"]: r["flagged"] for r in summary["rules"] if r.get("flagged")}
         figures = []
         if self.data is not None:
-            figures = [render(self.data.grids[spec.name], self.data.flagged_points(spec),
-                              rule_order, flagged) for spec in self.specs]
+            data = self.data
+
+            def draw(spec: DiagramSpec) -> RenderedDiagram:
+                return render(data.grids[spec.name], data.flagged_points(spec), rule_order,
+                              flagged)
+
+            # each figure after the first is drawn in a forked process at the same time
+            # (drawing is a fixed second or so per figure, most of it matplotlib)
+            others = [ForkedCall(functools.partial(draw, spec)) for spec in self.specs[1:]]
+            try:
+                figures = [draw(spec) for spec in self.specs[:1]]
+                figures += [drawing.result() for drawing in others]
+            finally:
+                for drawing in others:
+                    drawing.cancel()
         for figure in figures:
             report.write_bytes(figure.spec.file, figure.png)
         report.write_text(PAGE, html_page(summary, figures, flags, rule_order,
