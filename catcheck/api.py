@@ -4,7 +4,7 @@ from __future__ import annotations
 
 import functools
 import time
-from collections.abc import Callable, Iterator, Sequence
+from collections.abc import Callable, Collection, Iterator, Sequence
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
@@ -116,8 +116,9 @@ class TableCatalogue:
     def check_columns(self, columns: Sequence[str]) -> None:
         """Columns were checked against the schema already; one table has one schema."""
 
-    def batches(self, columns: Sequence[str], batch_rows: int
-                ) -> Iterator[tuple[int, pa.RecordBatch]]:
+    def batches(self, columns: Sequence[str], batch_rows: int, *,
+                dictionary: Collection[str] = ()) -> Iterator[tuple[int, pa.RecordBatch]]:
+        """The table's rows in batches, columns as they are (``dictionary`` is ignored)."""
         first = 0
         for batch in self.table.select(list(columns)).to_batches(max_chunksize=batch_rows):
             yield first, batch

@@ -33,7 +33,7 @@ import copy
 import functools
 import logging
 from collections import Counter, deque
-from collections.abc import Callable, Iterator, Sequence
+from collections.abc import Callable, Collection, Iterator, Sequence
 from contextlib import contextmanager
 from dataclasses import dataclass, field, replace
 from pathlib import Path
@@ -84,10 +84,10 @@ class FilePiece:
         """The file's path, for messages."""
         return self.file.parts[0].catalogue.files[0]
 
-    def batches(self, columns: Sequence[str], batch_rows: int
-                ) -> Iterator[tuple[int, pa.RecordBatch]]:
+    def batches(self, columns: Sequence[str], batch_rows: int, *,
+                dictionary: Collection[str] = ()) -> Iterator[tuple[int, pa.RecordBatch]]:
         """Yield ``(first_row, batch)`` over the file, rows numbered in the catalogue."""
-        for first_row, batch in self.file.batches(columns, batch_rows):
+        for first_row, batch in self.file.batches(columns, batch_rows, dictionary=dictionary):
             yield self.first_row + first_row, batch
 
 
@@ -188,7 +188,8 @@ def _star_batches(part: Part, inputs: _PassInputs, labels: Labels) -> Iterator[S
     """The part's rows as canonical batches, read with the pass's profile."""
     columns = inputs.profile.columns
     for piece in part:
-        for first_row, batch in piece.batches(columns, inputs.batch_rows):
+        for first_row, batch in piece.batches(columns, inputs.batch_rows,
+                                              dictionary=inputs.profile.label_columns):
             yield canonical_batch(inputs.profile, batch, first_row, labels)
 
 

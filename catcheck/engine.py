@@ -13,7 +13,7 @@ from __future__ import annotations
 
 import copy
 from collections import Counter
-from collections.abc import Callable, Iterator, Sequence
+from collections.abc import Callable, Collection, Iterator, Sequence
 from dataclasses import dataclass, field
 from typing import Any, Protocol
 
@@ -51,8 +51,10 @@ class Catalogue(Protocol):
 
     def check_columns(self, columns: Sequence[str]) -> None: ...
 
-    def batches(self, columns: Sequence[str], batch_rows: int
-                ) -> Iterator[tuple[int, pa.RecordBatch]]: ...
+    def batches(self, columns: Sequence[str], batch_rows: int, *,
+                dictionary: Collection[str] = ()) -> Iterator[tuple[int, pa.RecordBatch]]:
+        """Ordered ``(first_row, batch)`` of ``columns``; text columns in ``dictionary``
+        may come as Arrow dictionaries (where the format stores them so)."""
 
 
 @dataclass
@@ -179,7 +181,8 @@ def run_rules(catalogue: Catalogue, profile: Profile, rules: Sequence[Rule], sin
     stats, checker, labels = start_run(catalogue, profile, rules)
 
     def converted(reading: Profile = profile) -> Iterator[StarBatch]:
-        for first_row, batch in catalogue.batches(reading.columns, batch_rows):
+        for first_row, batch in catalogue.batches(reading.columns, batch_rows,
+                                                  dictionary=reading.label_columns):
             yield canonical_batch(reading, batch, first_row, labels)
 
     pieces = _pieces(catalogue, workers)
@@ -238,7 +241,8 @@ def _check_pieces(pieces: Sequence[Any], profile: Profile, batch_rows: int, labe
         labels.phases.unmapped.clear()  # this process's count for this piece only
         watching = [copy.deepcopy(observer) for observer in observers]  # still empty here
         results = []
-        for first_row, batch in pieces[index].batches(profile.columns, batch_rows):
+        for first_row, batch in pieces[index].batches(profile.columns, batch_rows,
+                                                      dictionary=profile.label_columns):
             result = check(canonical_batch(profile, batch, first_row, labels))
             if result.stars is not None:
                 for observer in watching:
@@ -312,7 +316,8 @@ def _group_pass(rules: Sequence[Rule], profile: Profile,
 
     def accumulate_piece(index: int) -> tuple[GroupAccumulator, list[str]]:
         partial = GroupAccumulator(variables)
-        for first_row, batch in pieces[index].batches(reading.columns, batch_rows):
+        for first_row, batch in pieces[index].batches(reading.columns, batch_rows,
+                                                      dictionary=reading.label_columns):
             partial.add(canonical_batch(reading, batch, first_row, labels))
         partial.settle()
         partial.variables = {}  # code, not state: only the samples go back

@@ -46,7 +46,7 @@ from __future__ import annotations
 
 import importlib
 import warnings
-from collections.abc import Iterator, Sequence
+from collections.abc import Collection, Iterator, Sequence
 from contextlib import contextmanager
 from dataclasses import dataclass
 from pathlib import Path
@@ -272,14 +272,15 @@ class JoinedCatalogue:
             constants = part.constant_columns()
             part.catalogue.check_columns([name for name in columns if name not in constants])
 
-    def batches(self, columns: Sequence[str], batch_rows: int = DEFAULT_BATCH_ROWS
-                ) -> Iterator[tuple[int, pa.RecordBatch]]:
+    def batches(self, columns: Sequence[str], batch_rows: int = DEFAULT_BATCH_ROWS, *,
+                dictionary: Collection[str] = ()) -> Iterator[tuple[int, pa.RecordBatch]]:
         """Yield ``(first_row, batch)`` over every part in order, only ``columns``."""
         offset = 0
         for part in self.parts:
             constants = part.constant_columns()
             own = [name for name in columns if name not in constants]
-            for first_row, batch in part.catalogue.batches(own, batch_rows):
+            for first_row, batch in part.catalogue.batches(own, batch_rows,
+                                                           dictionary=dictionary):
                 arrays = [pa.repeat(constants[name], batch.num_rows) if name in constants
                           else batch.column(own.index(name)) for name in columns]
                 yield offset + first_row, pa.RecordBatch.from_arrays(arrays, names=list(columns))
@@ -336,8 +337,10 @@ class _OneFile:
     def check_columns(self, columns: Sequence[str]) -> None:
         """One file has one schema: nothing to compare."""
 
-    def batches(self, columns: Sequence[str], batch_rows: int = DEFAULT_BATCH_ROWS
-                ) -> Iterator[tuple[int, pa.RecordBatch]]:
+    def batches(self, columns: Sequence[str], batch_rows: int = DEFAULT_BATCH_ROWS, *,
+                dictionary: Collection[str] = ()) -> Iterator[tuple[int, pa.RecordBatch]]:
+        """Ordered batches of ``columns``; text formats read every column as plain values
+        (``dictionary`` is a hint they ignore)."""
         raise NotImplementedError
 
     def full_schema(self) -> pa.Schema:
@@ -376,9 +379,10 @@ class CsvCatalogue(_OneFile):
             raise _unreadable(path, "CSV", exc) from None
         return cls(path, schema, rows, delimiter, native)
 
-    def batches(self, columns: Sequence[str], batch_rows: int = DEFAULT_BATCH_ROWS
-                ) -> Iterator[tuple[int, pa.RecordBatch]]:
-        """Yield ``(first_row, batch)`` of at most ``batch_rows`` rows, only ``columns``."""
+    def batches(self, columns: Sequence[str], batch_rows: int = DEFAULT_BATCH_ROWS, *,
+                dictionary: Collection[str] = ()) -> Iterator[tuple[int, pa.RecordBatch]]:
+        """Yield ``(first_row, batch)`` of at most ``batch_rows`` rows, only ``columns``
+        (``dictionary`` is ignored: CSV holds plain text)."""
         types = [self.schema.field(name).type for name in columns]
         reading = dict(zip(columns, types if self.native else [pa.string()] * len(types),
                            strict=True))
@@ -502,9 +506,10 @@ class FitsCatalogue(_OneFile):
         except (OSError, ValueError, TypeError, KeyError, IndexError) as exc:
             raise _unreadable(path, "FITS", exc) from None
 
-    def batches(self, columns: Sequence[str], batch_rows: int = DEFAULT_BATCH_ROWS
-                ) -> Iterator[tuple[int, pa.RecordBatch]]:
-        """Yield ``(first_row, batch)`` of ``batch_rows`` rows at a time, only ``columns``.
+    def batches(self, columns: Sequence[str], batch_rows: int = DEFAULT_BATCH_ROWS, *,
+                dictionary: Collection[str] = ()) -> Iterator[tuple[int, pa.RecordBatch]]:
+        """Yield ``(first_row, batch)`` of ``batch_rows`` rows at a time, only ``columns``
+        (``dictionary`` is ignored: FITS holds plain text).
 
         Each batch is copied out of the memory map (native byte order), so the file is
         never held by a batch.  astropy's warnings are silenced while a batch is read,

@@ -91,6 +91,16 @@ class Profile:
             names.extend(mapping.columns)
         return list(dict.fromkeys(names))
 
+    @property
+    def label_columns(self) -> list[str]:
+        """Columns of labels the checks look up by value (the group, the phase, text
+        quantities such as spectral types): few distinct values repeated over many rows,
+        best read as Arrow dictionaries.  Never the id column."""
+        names = [self.group_column] if self.group_column else []
+        names += [mapping.column for name, mapping in self.quantities.items()
+                  if not QUANTITIES[name].numeric]
+        return [name for name in dict.fromkeys(names) if name != self.id_column]
+
     def provides(self, quantity: str) -> bool:
         """True when the catalogue (or the group table) gives this quantity."""
         return quantity in self.quantities or (

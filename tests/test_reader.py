@@ -87,3 +87,25 @@ def test_files_with_clashing_schemas(tmp_path) -> None:
     second = write_catalogue(tmp_path, other, "b.parquet")
     with pytest.raises(CatalogueError, match=r"'Teff' is (large_)?string here but double"):
         catcheck.check([first, second], tmp_path / "profile.toml", rules=CORE)
+
+
+def test_label_columns_read_as_dictionaries_with_the_same_values(tmp_path) -> None:
+    import pyarrow as pa
+    import pyarrow.parquet as pq
+
+    table = pa.table({"id": ["a", "b", "c", "d"], "phase": ["MS", None, "RGB", "MS"],
+                      "cluster": pa.array(["7", "7", "9", None], pa.large_string()),
+                      "count": [1, 2, 2, 1]})
+    pq.write_table(table, tmp_path / "labels.parquet", row_group_size=3)
+    catalogue = ParquetCatalogue.open([tmp_path / "labels.parquet"])
+    labels = ["phase", "cluster", "count"]  # an integer column in the list is left as it is
+    batches = [b for _, b in catalogue.batches(table.column_names, 2, dictionary=labels)]
+    assert pa.types.is_dictionary(batches[0].schema.field("phase").type)
+    assert pa.types.is_dictionary(batches[0].schema.field("cluster").type)
+    assert batches[0].schema.field("id").type == pa.string()  # not asked for: plain
+    assert batches[0].schema.field("count").type == pa.int64()
+    for name in table.column_names:
+        read = pa.chunked_array([b.column(name) for b in batches])
+        if pa.types.is_dictionary(read.type):
+            read = read.cast(pa.string())
+        assert read.to_pylist() == table.column(name).to_pylist()
