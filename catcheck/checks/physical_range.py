@@ -54,6 +54,10 @@ class RangeSchema:
         self.rules = list(rules)
         self.checks = {rule.id: pandera.Check.le(rule.params["threshold"], name=rule.id)
                        for rule in self.rules}
+        # pandera sets up its backends on first use (a few tenths of a second): do it now,
+        # in the process that forks the workers, so that they inherit it
+        for check in self.checks.values():
+            check(pd.Series([], dtype=float))
 
     def validate(self, batch: StarBatch) -> dict[str, Outcome]:
         """Validate one batch; an outcome per rule."""
