@@ -113,10 +113,11 @@ TEFF_DOC = Documentation(
 def evaluate_teff(batch: StarBatch, params: Params) -> Outcome:
     """Flag Teff values that are log10 of a stellar temperature."""
     teff = batch.values["teff"]
-    with np.errstate(invalid="ignore", over="ignore"):
+    with np.errstate(invalid="ignore"):
         failed = ((teff >= np.log10(params["min_teff"]))
                   & (teff <= np.log10(params["max_teff"])))
-        as_log = np.power(10.0, teff)
+    as_log = np.full(batch.size, np.nan)  # only flagged rows need it: 10**x is costly
+    as_log[failed] = np.power(10.0, teff[failed])
 
     def describe(rows: np.ndarray) -> list[str]:
         return [f"Teff = {fmt(t)} K reads as log10(Teff/K): {e:.0f} K if the unit is dex(K)"
