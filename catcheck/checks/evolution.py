@@ -13,6 +13,7 @@ from __future__ import annotations
 from collections.abc import Callable
 
 import numpy as np
+import pandas as pd
 
 from catcheck.canonical import StarBatch
 from catcheck.checks.base import (
@@ -39,18 +40,29 @@ GIANT_PHASES = ("SGB", "RGB", "RC", "HB", "CHEB")
 EVOLVED_PHASES = (*GIANT_PHASES, "AGB", "PAGB", "WD", "RSG", "BSG", "WR")
 
 
-def metallicity(batch: StarBatch) -> np.ndarray:
-    """[M/H] of each row, solar (0) where the catalogue gives none."""
+def metallicity(batch: StarBatch, rows: np.ndarray | None = None) -> np.ndarray:
+    """[M/H] of each row (or of ``rows`` only), solar (0) where the catalogue gives none."""
     feh = batch.values.get("feh")
-    return np.zeros(batch.size) if feh is None else np.where(np.isnan(feh), 0.0, feh)
+    if feh is None:
+        return np.zeros(batch.size if rows is None else len(rows))
+    feh = feh.copy() if rows is None else feh[rows]
+    feh[np.isnan(feh)] = 0.0
+    return feh
 
 
-def lifetime_mass(batch: StarBatch) -> tuple[np.ndarray, np.ndarray]:
-    """The mass to use for lifetimes, and whether it is the catalogued initial mass."""
+def lifetime_mass(batch: StarBatch, rows: np.ndarray | None = None
+                  ) -> tuple[np.ndarray, np.ndarray]:
+    """The mass to use for lifetimes, and whether it is the catalogued initial mass.
+
+    Of each row, or of ``rows`` only.
+    """
     initial = batch.values.get("initial_mass")
     present = batch.values["mass"]
+    if rows is not None:
+        present = present[rows]
+        initial = None if initial is None else initial[rows]
     if initial is None:
-        return present, np.zeros(batch.size, dtype=bool)
+        return present, np.zeros(len(present), dtype=bool)
     given = ~np.isnan(initial)
     return np.where(given, initial, present), given
 
@@ -62,42 +74,57 @@ def on_rows(rows: np.ndarray, size: int, function: Callable[..., tuple[np.ndarra
     Timescale lookups cost far more than the rest of a rule, and each rule concerns one
     phase, often a small part of a catalogue.
     """
-    results = function(*(a[rows] for a in arrays))
-    spread = []
-    for result in results:
-        full = np.full(size, np.nan)
-        full[rows] = result
-        spread.append(full)
-    return tuple(spread)
+    return tuple(_spread(rows, size, result, np.nan)
+                 for result in function(*(a[rows] for a in arrays)))
 
 
-def _age_sigma(batch: StarBatch, params: Params, slope: np.ndarray | float = 0.0
+def _spread(rows: np.ndarray, size: int, values: np.ndarray, fill: float | bool
+            ) -> np.ndarray:
+    """A batch-length array holding ``values`` at ``rows`` and ``fill`` elsewhere."""
+    full = np.full(size, fill, dtype=np.asarray(values).dtype)
+    full[rows] = values
+    return full
+
+
+def _age_sigma(batch: StarBatch, params: Params, rows: np.ndarray, slope: np.ndarray
                ) -> np.ndarray:
-    """Combined 1-sigma (dex) of log age against log timescale."""
-    s_age = batch.log_sigma("age", params["assumed_age_dex"])
-    s_mass = batch.log_sigma("mass", params["assumed_mass_fraction"] / LN10)
+    """Combined 1-sigma (dex) of log age against log timescale, at ``rows``."""
+    s_age = batch.log_sigma("age", params["assumed_age_dex"])[rows]
+    s_mass = batch.log_sigma("mass", params["assumed_mass_fraction"] / LN10)[rows]
     return combined_sigma(s_age, np.abs(slope) * s_mass, params["intrinsic_dex"],
                           floor=params["floor_dex"])
 
 
-def _age_outcome(batch: StarBatch, params: Params, applies: np.ndarray, log_limit: np.ndarray,
-                 sigma: np.ndarray, older: bool, describe_row: Callable[..., str],
-                 extra: tuple[np.ndarray, ...] = ()) -> Outcome:
-    """Outcome of 'age beyond a timescale': older (or younger) than ``log_limit``."""
-    log_age = batch.log10("age")
+def _age_outcome(batch: StarBatch, params: Params, rows: np.ndarray, applies: np.ndarray,
+                 log_limit: np.ndarray, sigma: np.ndarray, older: bool,
+                 describe_row: Callable[..., str], extra: tuple[np.ndarray, ...] = ()
+                 ) -> Outcome:
+    """Outcome of 'age beyond a timescale': older (or younger) than ``log_limit``.
+
+    The rule concerns the batch positions ``rows`` only (ascending); ``applies``,
+    ``log_limit``, ``sigma`` and ``extra`` are given at those rows, and the outcome's
+    arrays are NaN (False) at every other row.
+    """
+    all_ages = batch.log10("age")
+    log_age = all_ages[rows]
     excess = (log_age - log_limit) if older else (log_limit - log_age)
     with np.errstate(invalid="ignore"):
         deviation = excess / sigma
         failed = applies & (deviation > params["threshold"])
         beyond = deviation > params.get("error_threshold", np.inf)
 
-    def describe(rows: np.ndarray) -> list[str]:
-        years = _power_of_ten(log_age[rows]), _power_of_ten(log_limit[rows])
+    def describe(positions: np.ndarray) -> list[str]:
+        at = np.searchsorted(rows, positions)
+        years = _power_of_ten(log_age[at]), _power_of_ten(log_limit[at])
         return [describe_row(*values)
-                for values in at_rows(np.arange(len(rows)), *years, deviation[rows],
-                                      *(column[rows] for column in extra))]
+                for values in at_rows(np.arange(len(at)), *years, deviation[at],
+                                      *(column[at] for column in extra))]
 
-    return Outcome(failed, describe, log_age, log_limit, np.abs(deviation), applies, beyond)
+    size = batch.size
+    return Outcome(_spread(rows, size, failed, False), describe, all_ages,
+                   _spread(rows, size, log_limit, np.nan),
+                   _spread(rows, size, np.abs(deviation), np.nan),
+                   _spread(rows, size, applies, False), _spread(rows, size, beyond, False))
 
 
 def _power_of_ten(logs: np.ndarray) -> np.ndarray:
@@ -117,15 +144,15 @@ def _timescale_outcome(batch: StarBatch, params: Params, rows: np.ndarray,
                        timescale: Callable[..., tuple[np.ndarray, np.ndarray]],
                        mass: np.ndarray, older: bool, describe_row: Callable[..., str],
                        extra: tuple[np.ndarray, ...] = ()) -> Outcome:
-    """Age against a mass-dependent timescale, for the ``rows`` of one phase.
+    """Age against a mass-dependent timescale, at the batch positions ``rows`` of one phase.
 
-    Masses outside the timescale table (0.1-199.5 Msun) are not checked, and are not
-    counted as checked.  ``describe_row`` gets (age, timescale, deviation, mass, *extra).
+    ``mass`` and ``extra`` are given at those rows.  Masses outside the timescale table
+    (0.1-199.5 Msun) are not checked, and are not counted as checked.  ``describe_row``
+    gets (age, timescale, deviation, mass, *extra).
     """
-    log_t, slope = on_rows(np.flatnonzero(rows), batch.size, timescale, mass,
-                           metallicity(batch))
-    return _age_outcome(batch, params, rows & np.isfinite(log_t), log_t,
-                        _age_sigma(batch, params, slope), older, describe_row,
+    log_t, slope = timescale(mass, metallicity(batch, rows))
+    return _age_outcome(batch, params, rows, np.isfinite(log_t), log_t,
+                        _age_sigma(batch, params, rows, slope), older, describe_row,
                         extra=(mass, *extra))
 
 
@@ -133,9 +160,10 @@ def _timescale_outcome(batch: StarBatch, params: Params, rows: np.ndarray,
 
 def evaluate_ms_lifetime(batch: StarBatch, params: Params) -> Outcome:
     """Main-sequence stars older than the main-sequence lifetime of their mass."""
-    mass, initial = lifetime_mass(batch)
+    rows = np.flatnonzero(phase_is(batch, "MS"))
+    mass, initial = lifetime_mass(batch, rows)
     return _timescale_outcome(
-        batch, params, phase_is(batch, "MS"), evolution.log_main_sequence_lifetime_and_slope,
+        batch, params, rows, evolution.log_main_sequence_lifetime_and_slope,
         mass, older=True, describe_row=lambda age, limit, dev, m, given: (
             f"MS star of {'initial' if given else 'present'} mass {fmt(m)} Msun is "
             f"{_years(age)} old, but stars of that mass leave the main sequence at "
@@ -152,12 +180,14 @@ def evaluate_evolved_too_young(batch: StarBatch, params: Params) -> Outcome:
     from above, so the lifetime used is the shortest the star could have had: a lower
     bound on its main-sequence lifetime.
     """
-    mass, initial = lifetime_mass(batch)
-    present = batch.values["mass"]
+    evolved = np.flatnonzero(phase_is(batch, *EVOLVED_PHASES))
+    mass, initial = lifetime_mass(batch, evolved)
+    bounded = initial | phase_is(batch, *GIANT_PHASES)[evolved]
+    rows, mass, initial = evolved[bounded], mass[bounded], initial[bounded]
+    present = batch.values["mass"][rows]
     upper = np.where(initial, mass, present * (1.0 + params["mass_loss_fraction"])
                      + params["mass_loss_msun"])
-    rows = phase_is(batch, *EVOLVED_PHASES) & (initial | phase_is(batch, *GIANT_PHASES))
-    phase = batch.phase if batch.phase is not None else np.full(batch.size, -1)
+    phase = batch.phase[rows] if batch.phase is not None else np.full(len(rows), -1)
 
     def describe_row(age: float, limit: float, dev: float, initial_mass: float,
                      present_mass: float, given: float, code: float) -> str:
@@ -179,9 +209,10 @@ def evaluate_evolved_too_young(batch: StarBatch, params: Params) -> Outcome:
 
 def evaluate_pms_too_old(batch: StarBatch, params: Params) -> Outcome:
     """Pre-main-sequence stars older than the contraction time of their mass."""
+    rows = np.flatnonzero(phase_is(batch, "PMS"))
     return _timescale_outcome(
-        batch, params, phase_is(batch, "PMS"), evolution.log_pre_main_sequence_time_and_slope,
-        batch.values["mass"], older=True, describe_row=lambda age, limit, dev, m: (
+        batch, params, rows, evolution.log_pre_main_sequence_time_and_slope,
+        batch.values["mass"][rows], older=True, describe_row=lambda age, limit, dev, m: (
             f"pre-main-sequence star of {m:.3g} Msun is {_years(age)} old, but it reaches "
             f"the main sequence at {_years(limit)}: {dev:.1f} sigma"))
 
@@ -190,16 +221,15 @@ def evaluate_pms_too_old(batch: StarBatch, params: Params) -> Outcome:
 
 def evaluate_white_dwarf_too_young(batch: StarBatch, params: Params) -> Outcome:
     """White dwarfs in populations younger than the most massive progenitor's lifetime."""
-    white_dwarfs = phase_is(batch, "WD")
-    (log_t,) = on_rows(np.flatnonzero(white_dwarfs), batch.size, lambda feh: (np.log10(
-        evolution.youngest_white_dwarf_age(feh, params["max_progenitor_mass"])),),
-        metallicity(batch))
-    sigma = combined_sigma(batch.log_sigma("age", params["assumed_age_dex"]),
+    rows = np.flatnonzero(phase_is(batch, "WD"))
+    log_t = np.log10(evolution.youngest_white_dwarf_age(metallicity(batch, rows),
+                                                        params["max_progenitor_mass"]))
+    sigma = combined_sigma(batch.log_sigma("age", params["assumed_age_dex"])[rows],
                            params["intrinsic_dex"], floor=params["floor_dex"])
     mass_text = f"{params['max_progenitor_mass']:g}"
     progenitor = f"{indefinite_article(mass_text)} {mass_text} Msun"
     return _age_outcome(
-        batch, params, white_dwarfs, log_t, sigma, older=False,
+        batch, params, rows, np.ones(len(rows), dtype=bool), log_t, sigma, older=False,
         describe_row=lambda age, limit, dev: (
             f"white dwarf in a population {_years(age)} old, but even {progenitor} "
             f"progenitor needs {_years(limit)} to make one: {dev:.1f} sigma"))
@@ -209,27 +239,17 @@ def evaluate_white_dwarf_too_young(batch: StarBatch, params: Params) -> Outcome:
 
 def evaluate_blue_straggler(batch: StarBatch, params: Params) -> Outcome:
     """Main-sequence cluster members more massive than their cluster's turn-off."""
-    mass = batch.values["mass"]
+    codes = batch.group_codes
+    assert codes is not None, "group statistics need the profile's group"
+    rows = np.flatnonzero(phase_is(batch, "MS") & (codes >= 0))
+    mass = batch.values["mass"][rows]
     # the cluster's age is its members' median age (pass 1), else the member's own
-    _, cluster_age, _ = batch.group_statistic(CLUSTER_LOG_AGE)
-    log_age = np.where(np.isfinite(cluster_age), cluster_age, batch.log10("age"))
-    in_cluster = batch.group_codes >= 0 if batch.group_codes is not None else np.zeros(
-        batch.size, dtype=bool)
-    candidates = np.flatnonzero(phase_is(batch, "MS") & in_cluster)
-
-    def turnoff_and_slope(log_age: np.ndarray, feh: np.ndarray) -> tuple[np.ndarray, ...]:
-        # members share their cluster's age and nearly its [M/H]: solve once per distinct
-        # pair, [M/H] to 0.01 dex (changing the turn-off mass by < 0.1%)
-        pairs, inverse = np.unique(log_age + 1j * np.round(feh, 2), return_inverse=True)
-        turnoff = evolution.main_sequence_turnoff_mass(10.0 ** pairs.real, pairs.imag)
-        slope = evolution.log_main_sequence_lifetime_and_slope(turnoff, pairs.imag)[1]
-        return turnoff[inverse], slope[inverse]
-
-    turnoff, slope = on_rows(candidates, batch.size, turnoff_and_slope, log_age,
-                             metallicity(batch))
+    _, cluster_age, _ = batch.group_stats[CLUSTER_LOG_AGE].at(codes[rows])
+    log_age = np.where(np.isfinite(cluster_age), cluster_age, batch.log10("age")[rows])
+    turnoff, slope = _turnoff_and_slope(log_age, metallicity(batch, rows))
     with np.errstate(divide="ignore", invalid="ignore"):
-        s_turnoff = batch.log_sigma("age", params["assumed_age_dex"]) / np.abs(slope)
-        s_mass = batch.log_sigma("mass", params["assumed_mass_fraction"] / LN10)
+        s_turnoff = batch.log_sigma("age", params["assumed_age_dex"])[rows] / np.abs(slope)
+        s_mass = batch.log_sigma("mass", params["assumed_mass_fraction"] / LN10)[rows]
         sigma = combined_sigma(s_mass, s_turnoff, params["intrinsic_dex"],
                                floor=params["floor_dex"])
         deviation = (np.log10(mass) - np.log10(turnoff)) / sigma
@@ -237,15 +257,34 @@ def evaluate_blue_straggler(batch: StarBatch, params: Params) -> Outcome:
     with np.errstate(invalid="ignore"):
         failed = applies & (deviation > params["threshold"])
 
-    def describe(rows: np.ndarray) -> list[str]:
+    def describe(positions: np.ndarray) -> list[str]:
+        at = np.searchsorted(rows, positions)
         return [
             f"MS member of {fmt(m)} Msun is above its cluster's turn-off mass {t:.3g} Msun "
             f"at {_years(a)}: {d:.1f} sigma (a blue straggler, a binary or a non-member)"
-            for m, t, a, d in at_rows(np.arange(len(rows)), mass[rows], turnoff[rows],
-                                      _power_of_ten(log_age[rows]), deviation[rows])
+            for m, t, a, d in at_rows(np.arange(len(at)), mass[at], turnoff[at],
+                                      _power_of_ten(log_age[at]), deviation[at])
         ]
 
-    return Outcome(failed, describe, mass, turnoff, np.abs(deviation), applies)
+    size = batch.size
+    return Outcome(_spread(rows, size, failed, False), describe, batch.values["mass"],
+                   _spread(rows, size, turnoff, np.nan),
+                   _spread(rows, size, np.abs(deviation), np.nan),
+                   _spread(rows, size, applies, False))
+
+
+def _turnoff_and_slope(log_age: np.ndarray, feh: np.ndarray
+                       ) -> tuple[np.ndarray, np.ndarray]:
+    """Turn-off mass at each (log age, [M/H]) and the lifetime slope d log t / d log M there.
+
+    Members share their cluster's age and nearly its [M/H]: solved once per distinct pair,
+    [M/H] to 0.01 dex (changing the turn-off mass by < 0.1%).  The pairs are found by
+    hashing, not sorting.
+    """
+    inverse, pairs = pd.factorize(log_age + 1j * np.round(feh, 2), use_na_sentinel=False)
+    turnoff = evolution.main_sequence_turnoff_mass(10.0 ** pairs.real, pairs.imag)
+    slope = evolution.log_main_sequence_lifetime_and_slope(turnoff, pairs.imag)[1]
+    return turnoff[inverse], slope[inverse]
 
 
 _AGE_CAVEAT = ("Stellar ages are model-dependent: grids differ by 10-25% in main-sequence "

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
+from functools import cache
 
 import numpy as np
 
@@ -30,6 +31,7 @@ _LABELS = {"logg": ("log g", "dex(cm/s2)"), "luminosity": ("log L", "dex(Lsun)")
            "radius": ("log R", "dex(Rsun)")}
 
 
+@cache
 def _teff_ranges() -> tuple[np.ndarray, np.ndarray]:
     """log Teff range of each phase code's envelope (NaN for phases without one)."""
     low = np.full(len(PHASE_CODES), np.nan)
@@ -62,19 +64,51 @@ def _assess(phase: np.ndarray, log_teff: np.ndarray, s_teff: np.ndarray,
 
     With ``range_check`` a Teff outside the phase's whole range counts too (in sigma of
     the Teff error itself, so it is judged at the catalogued Teff only).
+
+    Most rows lie inside every band: their deviation is 0, against the first compared
+    quantity and its lower edge.  Only the others are measured (:func:`_worst_of`).
     """
-    bounds = envelope_bounds(phase, log_teff)
-    pad = params["pad_dex"]
-    deviations, values, limits = [], [], []
+    bounds = envelope_bounds(phase, log_teff, margin=params["pad_dex"])
+    bands = []
+    inside = np.full(len(log_teff), bool(compared))
     for quantity, value, sigma in compared:
-        low_name, high_name = _BOUNDS[quantity]
-        low = getattr(bounds, low_name) - pad
-        high = getattr(bounds, high_name) + pad
+        low, high = (getattr(bounds, name) for name in _BOUNDS[quantity])
+        with np.errstate(invalid="ignore"):  # NaN is never inside
+            inside &= value >= low
+            inside &= value <= high
+        bands.append((value, sigma, low, high))
+    rest = np.flatnonzero(~inside)
+    if bands:  # inside every band: the first quantity at its lower edge, 0 sigma out
+        deviation = np.zeros(len(log_teff))
+        observed, expected = bands[0][0].astype(float), bands[0][2]
+    else:
+        deviation, observed, expected = (np.empty(len(log_teff)) for _ in range(3))
+    worst = np.zeros(len(log_teff), dtype=np.intp)
+    deviation[rest], observed[rest], expected[rest], worst[rest] = _worst_of(
+        [tuple(column[rest] for column in band) for band in bands], params,
+        (phase[rest], log_teff[rest], s_teff[rest], bounds.outside_range[rest])
+        if range_check else None)
+    return _Assessment(deviation, observed, expected, worst, bounds.covered,
+                       np.asarray(log_teff, dtype=float).copy())
+
+
+def _worst_of(bands: list[tuple[np.ndarray, ...]], params: Params,
+              teff_range: tuple[np.ndarray, ...] | None
+              ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """(deviation, observed, expected edge, index) of each row's worst quantity.
+
+    ``bands`` holds (value, sigma, low, high) per compared quantity; ``teff_range`` the
+    rows' (phase, log Teff, its sigma, outside the phase's Teff range) when that counts
+    too, as the last quantity.  A quantity that cannot be compared (NaN) never is worst.
+    """
+    deviations, values, limits = [], [], []
+    for value, sigma, low, high in bands:
         z = excess_sigma(value, combined_sigma(sigma, floor=params["floor_dex"]), low, high)
         deviations.append(np.where(np.isnan(low), np.nan, z))
         values.append(value)
         limits.append(np.where(value > high, high, low))
-    if range_check:  # Teff outside the phase's whole range, in sigma of log Teff
+    if teff_range is not None:  # Teff outside the phase's whole range, in sigma of log Teff
+        phase, log_teff, s_teff, outside_range = teff_range
         range_low, range_high = _teff_ranges()
         known = phase >= 0
         code = np.where(known, phase, 0)
@@ -83,18 +117,16 @@ def _assess(phase: np.ndarray, log_teff: np.ndarray, s_teff: np.ndarray,
         z_teff = excess_sigma(log_teff, combined_sigma(s_teff,
                                                        floor=params["teff_floor_dex"]),
                               t_low, t_high)
-        deviations.append(np.where(bounds.outside_range, z_teff, np.nan))
+        deviations.append(np.where(outside_range, z_teff, np.nan))
         values.append(log_teff)
         limits.append(np.where(log_teff > t_high, t_high, t_low))
 
     stacked = np.vstack(deviations)
     usable = ~np.isnan(stacked)
     worst = np.argmax(np.where(usable, stacked, -np.inf), axis=0)
-    pick = np.arange(len(log_teff))
+    pick = np.arange(stacked.shape[1])
     deviation = np.where(usable.any(axis=0), stacked[worst, pick], np.nan)
-    return _Assessment(deviation, np.vstack(values)[worst, pick],
-                       np.vstack(limits)[worst, pick], worst, bounds.covered,
-                       np.asarray(log_teff, dtype=float).copy())
+    return deviation, np.vstack(values)[worst, pick], np.vstack(limits)[worst, pick], worst
 
 
 def evaluate(batch: StarBatch, params: Params) -> Outcome:
@@ -139,14 +171,14 @@ def evaluate(batch: StarBatch, params: Params) -> Outcome:
     def describe(rows: np.ndarray) -> list[str]:
         phases = [PHASE_CODES[c] for c in batch.phase[rows].tolist()]
         which = result.worst[rows].tolist()
-        teff_at = np.full(batch.size, np.nan)
         with np.errstate(over="ignore"):  # a Teff of 1e308 K, shifted by its error
-            teff_at[rows] = np.power(10.0, result.log_teff[rows])
+            teff_at = np.power(10.0, result.log_teff[rows])
         return [
             _message(phase, labels[k] if k < len(labels) else None, t, at, o, e, d, params)
             for phase, k, (t, at, o, e, d) in zip(
-                phases, which, at_rows(rows, batch.values["teff"], teff_at,
-                                       result.observed, result.expected, deviation),
+                phases, which, at_rows(np.arange(len(rows)), batch.values["teff"][rows],
+                                       teff_at, result.observed[rows],
+                                       result.expected[rows], deviation[rows]),
                 strict=True)
         ]
 

@@ -179,16 +179,18 @@ def phase_envelope(phase: str) -> PhaseEnvelope:
     return envelopes[target]
 
 
-def envelope_bounds(phase_codes: ArrayLike, log_teff: ArrayLike) -> EnvelopeBounds:
+def envelope_bounds(phase_codes: ArrayLike, log_teff: ArrayLike, margin: float = 0.0
+                    ) -> EnvelopeBounds:
     """Bounds on log g, log L and log R for each row's phase at its log Teff (vectorised).
 
     ``phase_codes``: integer indices into :data:`catcheck.quantities.PHASE_CODES` (-1 for no
     phase); ``log_teff``: log10 Teff/K; scalars or arrays of one shape.  Each row is looked
     up in its phase's bins with the neighbour rule of the module docstring.  Envelopes from
     PARSEC v1.2S (Bressan et al. 2012) are unions over metallicity and age; the bounds are
-    raw (no padding).  Bounds are NaN for rows with no phase, a phase without an envelope
-    (PAGB, WR) or an unknown code, NaN Teff, or Teff outside the phase's range (then
-    ``outside_range`` is True).  One call serves every quantity: prefer it to the
+    raw (no padding) unless a rule asks for a ``margin`` (dex, taken off every minimum and
+    added to every maximum).  Bounds are NaN for rows with no phase, a phase without an
+    envelope (PAGB, WR) or an unknown code, NaN Teff, or Teff outside the phase's range
+    (then ``outside_range`` is True).  One call serves every quantity: prefer it to the
     single-quantity functions below when a rule needs several.
     """
     codes = np.asarray(phase_codes)
@@ -196,22 +198,41 @@ def envelope_bounds(phase_codes: ArrayLike, log_teff: ArrayLike) -> EnvelopeBoun
     codes, log_teff = np.broadcast_arrays(codes, log_teff)
     grid = _grid()
     phase = np.where((codes >= 0) & (codes < len(PHASE_CODES)), codes, len(PHASE_CODES))
+    # a Teff on a bin edge belongs to the bin above (1e-7 bin absorbs rounding)
+    position = np.asarray(log_teff - grid.start)
+    position /= grid.width
+    position += 1e-7
     with np.errstate(invalid="ignore"):
-        # a Teff on a bin edge belongs to the bin above (1e-7 bin absorbs rounding)
-        position = np.floor((log_teff - grid.start) / grid.width + 1e-7)
+        np.floor(position, out=position)
         on_grid = (position >= 0) & (position < grid.bins)
-    position = np.where(on_grid, position, 0).astype(np.intp)
-    in_range = grid.in_range[phase, position] & on_grid
+    # one flat index per row into the (phase, bin) tables; off the grid: the empty column
+    cell = np.where(on_grid, position, grid.bins).astype(np.intp)
+    cell += phase.astype(np.intp) * (grid.bins + 1)
+    in_range = grid.in_range.ravel().take(cell)
     covered = grid.covered[phase]
-    out = {name: np.where(in_range, table[phase, position], np.nan)
-           for name, table in grid.bounds.items()}
+    out = {name: np.asarray(table.ravel().take(cell))
+           for name, table in _widened(margin).items()}
     outside = covered & np.isfinite(log_teff) & ~in_range
     return EnvelopeBounds(**out, covered=covered, outside_range=outside)
 
 
+@cache
+def _widened(margin: float) -> dict[str, FloatArray]:
+    """The grid's bound tables with ``margin`` taken off the minima and added to the maxima."""
+    bounds = _grid().bounds
+    if margin == 0.0:
+        return bounds
+    return {name: table - margin if name.endswith("_min") else table + margin
+            for name, table in bounds.items()}
+
+
 @dataclass(frozen=True)
 class _Grid:
-    """Every phase's lookup on one shared Teff grid: bounds[name][phase code, bin]."""
+    """Every phase's lookup on one shared Teff grid: bounds[name][phase code, bin].
+
+    Each table has one column more than the grid has bins, NaN (``in_range`` False), for
+    a Teff off the grid; bounds are NaN wherever ``in_range`` is False.
+    """
 
     start: float
     width: float
@@ -230,8 +251,8 @@ def _grid() -> _Grid:
     stop = max(lookup.edges[-1] for lookup in lookups.values())
     bins = round((stop - start) / width)
     codes = len(PHASE_CODES) + 1
-    bounds = {name: np.full((codes, bins), np.nan) for name in BOUND_NAMES}
-    in_range = np.zeros((codes, bins), dtype=bool)
+    bounds = {name: np.full((codes, bins + 1), np.nan) for name in BOUND_NAMES}
+    in_range = np.zeros((codes, bins + 1), dtype=bool)
     covered = np.zeros(codes, dtype=bool)
     for code, lookup in lookups.items():
         first = round((lookup.edges[0] - start) / width)

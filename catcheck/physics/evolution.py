@@ -166,8 +166,35 @@ class _Cells:
 
 
 def _locate(nodes: FloatArray, x: FloatArray) -> tuple[NDArray[np.intp], FloatArray]:
-    index = np.clip(np.searchsorted(nodes, x, side="right") - 1, 0, len(nodes) - 2)
-    return index, (x - nodes[index]) / (nodes[index + 1] - nodes[index])
+    """Lower node index of each ``x`` (clipped to the first and last cell) and the fraction
+    of the way to the next node (NaN for NaN ``x``)."""
+    index = _lower_node(nodes, x)
+    fraction = np.subtract(x, nodes.take(index))
+    fraction /= np.diff(nodes).take(index)
+    return index, fraction
+
+
+def _lower_node(nodes: FloatArray, x: FloatArray) -> NDArray[np.intp]:
+    """``searchsorted(nodes, x, side="right") - 1`` clipped to 0 .. len(nodes) - 2.
+
+    On evenly spaced nodes (the table's) the index is computed, then moved by at most one
+    node to the exact answer: much faster than a binary search.  NaN gives some index in
+    range (its fraction is NaN whatever the index).
+    """
+    last = len(nodes) - 2
+    step = (nodes[-1] - nodes[0]) / (last + 1)
+    even = last >= 0 and np.all(np.abs(nodes - (nodes[0] + step * np.arange(last + 2)))
+                                <= 0.01 * step)
+    if not even:
+        return np.clip(np.searchsorted(nodes, x, side="right") - 1, 0, last)
+    # within one node of the answer; fmax and fmin send NaN to 0 and clip infinities
+    guess = np.asarray(x - nodes[0])
+    guess /= step
+    index = np.fmin(np.fmax(guess, 0.0, out=guess), last, out=guess).astype(np.intp)
+    with np.errstate(invalid="ignore"):
+        index += x >= nodes[1:].take(index)
+        index -= x < nodes.take(index)
+    return np.clip(index, 0, last, out=index)
 
 
 def _feh_cells(table: TimescaleTable, feh: FloatArray
@@ -181,33 +208,59 @@ def _cells(table: TimescaleTable, initial_mass: ArrayLike, feh: ArrayLike) -> _C
                                             np.asarray(feh, dtype=float))
     with np.errstate(divide="ignore", invalid="ignore"):
         log_mass = np.log10(mass)
-    outside = ~((log_mass >= table.log_mass[0]) & (log_mass <= table.log_mass[-1]))
-    log_mass = np.where(outside, np.nan, log_mass)
+    inside = (log_mass >= table.log_mass[0]) & (log_mass <= table.log_mass[-1])
+    log_mass = np.where(inside, log_mass, np.nan)
     mass_index, mass_fraction = _locate(table.log_mass, log_mass)
     feh_index, feh_fraction = _feh_cells(table, metallicity)
     mass_fraction = np.where(np.isnan(feh_fraction), np.nan, mass_fraction)
     return _Cells(mass_index, mass_fraction, feh_index, feh_fraction)
 
 
-def _bilinear(values: FloatArray, cells: _Cells) -> FloatArray:
-    """Bilinear interpolation; a node with zero weight never matters, even if NaN."""
-    i, u, j, w = cells.mass_index, cells.mass_fraction, cells.feh_index, cells.feh_fraction
+def _corners(values: FloatArray, cells: _Cells) -> tuple[FloatArray, ...]:
+    """The table values at each row's four cell corners: (i, j), (i, j+1), (i+1, j) and
+    (i+1, j+1), i the mass node and j the [M/H] node."""
+    columns = values.shape[1]
+    flat = values.ravel()
+    at = cells.mass_index * columns + cells.feh_index
+    return flat.take(at), flat.take(at + 1), flat.take(at + columns), flat.take(at + columns + 1)
+
+
+def _bilinear(values: FloatArray, cells: _Cells,
+              corners: tuple[FloatArray, ...] | None = None) -> FloatArray:
+    """Bilinear interpolation; a node with zero weight never matters, even if NaN.
+
+    ``corners``: :func:`_corners` of ``values``, where the caller has them already.
+    """
+    u, w = cells.mass_fraction, cells.feh_fraction
+    corners = _corners(values, cells) if corners is None else corners
+    # without NaN or infinity in the table a zero weight gives a zero term by itself
+    finite = bool(np.isfinite(values).all())
     total = np.zeros(np.shape(u))
-    for di, mass_weight in ((0, 1.0 - u), (1, u)):
-        for dj, feh_weight in ((0, 1.0 - w), (1, w)):
-            weight = mass_weight * feh_weight
-            total += np.where(weight > 0.0, weight * values[i + di, j + dj], 0.0)
-    return np.where(np.isnan(u), np.nan, total)
+    term = np.empty(np.shape(u))
+    rest_u, rest_w = 1.0 - u, 1.0 - w
+    weights = ((rest_u, rest_w), (rest_u, w), (u, rest_w), (u, w))
+    for (mass_weight, feh_weight), corner in zip(weights, corners, strict=True):
+        weight = np.multiply(mass_weight, feh_weight, out=term)
+        if not finite:
+            total += np.where(weight > 0.0, weight * corner, 0.0)
+            continue
+        weight *= corner
+        total += weight
+    total[np.isnan(u)] = np.nan
+    return total
 
 
-def _slope_in_log_mass(values: FloatArray, cells: _Cells, table: TimescaleTable
-                       ) -> FloatArray:
+def _slope_in_log_mass(values: FloatArray, cells: _Cells, table: TimescaleTable,
+                       corners: tuple[FloatArray, ...] | None = None) -> FloatArray:
     """d(value)/d(log M) of the bilinear interpolation: exact within each table cell."""
-    i, u, j, w = cells.mass_index, cells.mass_fraction, cells.feh_index, cells.feh_fraction
-    step = table.log_mass[i + 1] - table.log_mass[i]
-    rise = (1.0 - w) * (values[i + 1, j] - values[i, j]) + w * (
-        values[i + 1, j + 1] - values[i, j + 1])
-    return np.where(np.isnan(u), np.nan, rise / step)
+    u, w = cells.mass_fraction, cells.feh_fraction
+    low, low_next, high, high_next = _corners(values, cells) if corners is None else corners
+    rise = np.asarray(high - low)
+    rise *= 1.0 - w
+    rise += np.multiply(w, np.subtract(high_next, low_next))
+    rise /= np.diff(table.log_mass).take(cells.mass_index)
+    rise[np.isnan(u)] = np.nan
+    return rise
 
 
 def log_main_sequence_lifetime_and_slope(initial_mass: ArrayLike, feh: ArrayLike
@@ -219,8 +272,9 @@ def log_main_sequence_lifetime_and_slope(initial_mass: ArrayLike, feh: ArrayLike
     """
     table = timescale_table()
     cells = _cells(table, initial_mass, feh)
-    return (_bilinear(table.log_t_ms, cells),
-            _slope_in_log_mass(table.log_t_ms, cells, table))
+    corners = _corners(table.log_t_ms, cells)
+    return (_bilinear(table.log_t_ms, cells, corners),
+            _slope_in_log_mass(table.log_t_ms, cells, table, corners))
 
 
 def log_pre_main_sequence_time_and_slope(initial_mass: ArrayLike, feh: ArrayLike
@@ -228,8 +282,9 @@ def log_pre_main_sequence_time_and_slope(initial_mass: ArrayLike, feh: ArrayLike
     """:func:`log_pre_main_sequence_time` and its slope d log t_PMS / d log M."""
     table = timescale_table()
     cells = _cells(table, initial_mass, feh)
-    return (_bilinear(table.log_t_pms, cells),
-            _slope_in_log_mass(table.log_t_pms, cells, table))
+    corners = _corners(table.log_t_pms, cells)
+    return (_bilinear(table.log_t_pms, cells, corners),
+            _slope_in_log_mass(table.log_t_pms, cells, table, corners))
 
 
 def log_main_sequence_lifetime(initial_mass: ArrayLike, feh: ArrayLike) -> FloatArray:
@@ -345,11 +400,14 @@ def main_sequence_turnoff_mass(age: ArrayLike, feh: ArrayLike) -> FloatArray:
     with np.errstate(divide="ignore", invalid="ignore"):
         log_age = np.log10(log_age)
     j, w = _feh_cells(table, metallicity)
-    lifetimes = table.log_t_ms
+    columns = table.log_t_ms.shape[1]
+    lifetimes = table.log_t_ms.ravel()
+    rest = 1.0 - w
 
     def column(index: NDArray[np.intp]) -> FloatArray:
         """log t_MS at mass node ``index``, interpolated to each row's [M/H]."""
-        return (1.0 - w) * lifetimes[index, j] + w * lifetimes[index, j + 1]
+        at = index * columns + j
+        return rest * lifetimes.take(at) + w * lifetimes.take(at + 1)
 
     n_mass = len(table.log_mass)
     low = np.zeros(np.shape(log_age), dtype=np.intp)
