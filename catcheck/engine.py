@@ -14,7 +14,7 @@ from __future__ import annotations
 import copy
 from collections import Counter
 from collections.abc import Callable, Collection, Iterator, Sequence
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from typing import Any, Protocol
 
 import numpy as np
@@ -281,8 +281,9 @@ def start_run(catalogue: Catalogue, profile: Profile, rules: Sequence[Rule]
 def group_plan(rules: Sequence[Rule], profile: Profile
                ) -> tuple[dict[str, GroupVariable], Profile] | None:
     """What pass 1 aggregates and reads: the group variables of ``rules`` and the profile
-    restricted to the quantities they need; None when no rule needs a group pass (or the
-    profile has no group column).
+    restricted to the quantities they need, without their errors (group variables are
+    functions of values: no error column is read); None when no rule needs a group pass
+    (or the profile has no group column).
     """
     group_rules = [rule for rule in rules if rule.check.group_variables]
     if not group_rules or not profile.group_column:
@@ -291,7 +292,10 @@ def group_plan(rules: Sequence[Rule], profile: Profile
                  for name, variable in rule.check.group_variables.items()}
     needed = {quantity for rule in group_rules for quantity in rule.needs}
     needed |= {"initial_mass", "feh"}  # optional inputs of the lifetime relations
-    return variables, profile.restricted_to(needed)
+    reading = profile.restricted_to(needed)
+    return variables, replace(reading, quantities={
+        name: replace(mapping, error_column=None, error_value=None)
+        for name, mapping in reading.quantities.items()})
 
 
 def _group_pass(rules: Sequence[Rule], profile: Profile,

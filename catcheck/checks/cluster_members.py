@@ -25,7 +25,7 @@ from catcheck.checks.base import (
     fmt,
     sigma_deviation,
 )
-from catcheck.groups import group_labels_at
+from catcheck.groups import group_labels_at, group_summary
 
 #: the standard error of a median is sqrt(pi/2) = 1.2533 times that of a mean (normal data)
 MEDIAN_EFFICIENCY = 1.2533
@@ -33,7 +33,10 @@ MEDIAN_EFFICIENCY = 1.2533
 
 @dataclass(frozen=True)
 class MemberQuantity:
-    """How a member check reads its quantity: values, 1-sigma and intrinsic spread."""
+    """How a member check reads its quantity: values, 1-sigma and intrinsic spread.
+
+    ``intrinsic`` is a function of the group's median (an array by group, NaN for none).
+    """
 
     label: str
     unit: str
@@ -53,13 +56,19 @@ def member_check(name: str, quantity: str, member: MemberQuantity, doc: Document
 
     def evaluate(batch: StarBatch, params: Params) -> Outcome:
         values = member.values(batch)
-        count, median, spread = batch.group_statistic(variable)
+        summary, codes = group_summary(batch, variable)
+        # the terms of the group alone, once per group, then looked up for each row
+        count, median, spread = summary.tables()
         with np.errstate(invalid="ignore", divide="ignore"):
             centre_error = MEDIAN_EFFICIENCY * spread / np.sqrt(count)
-        sigma = combined_sigma(member.sigma(batch, params), member.intrinsic(params, median),
-                               centre_error, floor=params["floor"])
-        deviation, failed = sigma_deviation(values, median, sigma, params["threshold"])
-        applies = count >= params["min_members"]
+        intrinsic = member.intrinsic(params, median)
+        if np.ndim(intrinsic):
+            intrinsic = summary.lookup(intrinsic, codes)
+        sigma = combined_sigma(member.sigma(batch, params), intrinsic,
+                               summary.lookup(centre_error, codes), floor=params["floor"])
+        row_median = summary.lookup(median, codes)
+        deviation, failed = sigma_deviation(values, row_median, sigma, params["threshold"])
+        applies = summary.lookup(count >= params["min_members"], codes)
         failed &= applies
 
         # a spread of logarithms is a plain ratio: dex, whatever the values' unit
@@ -67,16 +76,17 @@ def member_check(name: str, quantity: str, member: MemberQuantity, doc: Document
 
         def describe(rows: np.ndarray) -> list[str]:
             groups = group_labels_at(batch.groups, rows)
+            group_count, _, group_spread = summary.at(codes[rows])
             return [
                 f"{member.label} {fmt(v)} {member.unit} is {d:.1f} sigma from the median "
                 f"{fmt(m)} {member.unit} of group {g} (n = {n:.0f}, spread {fmt(s)} "
                 f"{width_unit}, sigma {fmt(sg)} {width_unit})"
-                for g, (v, m, n, s, d, sg) in zip(
-                    groups, at_rows(rows, values, median, count, spread, deviation, sigma),
-                    strict=True)
+                for g, (v, m, d, sg), n, s in zip(
+                    groups, at_rows(rows, values, row_median, deviation, sigma),
+                    group_count.astype(float).tolist(), group_spread.tolist(), strict=True)
             ]
 
-        return Outcome(failed, describe, values, median, deviation, applies)
+        return Outcome(failed, describe, values, row_median, deviation, applies)
 
     return Check(name=name, needs=fixed_needs(quantity), evaluate=evaluate, doc=doc,
                  defaults=defaults, group_variables={variable: member.values})

@@ -22,7 +22,7 @@ from catcheck.checks.cluster_members import (
     cluster_log_age,
 )
 from catcheck.checks.evolution import GIANT_PHASES, lifetime_mass, metallicity, on_rows
-from catcheck.groups import group_labels_at
+from catcheck.groups import group_labels_at, group_summary
 from catcheck.physics.evolution import log_main_sequence_lifetime
 
 NAME = "cluster_turnoff_age"
@@ -43,18 +43,26 @@ def implied_log_age(batch: StarBatch) -> np.ndarray:
 
 def evaluate(batch: StarBatch, params: Params) -> Outcome:
     """Flag evolved members whose cluster age disagrees with the age their masses imply."""
-    count, implied, spread = batch.group_statistic(NAME)
-    _, log_age, _ = batch.group_statistic(CLUSTER_LOG_AGE)  # the members' median age
+    implied_summary, codes = group_summary(batch, NAME)
+    age_summary, _ = group_summary(batch, CLUSTER_LOG_AGE)  # the members' median age
+    # the terms of the cluster alone, once per cluster, then looked up for each row
+    count, implied, spread = implied_summary.tables()
     with np.errstate(invalid="ignore", divide="ignore"):
         centre_error = MEDIAN_EFFICIENCY * spread / np.sqrt(count)
-    sigma = combined_sigma(batch.log_sigma("age", params["assumed_age_dex"]), centre_error,
+    _, cluster_log_ages, _ = age_summary.tables()
+    log_age = age_summary.lookup(cluster_log_ages, codes)
+    sigma = combined_sigma(batch.log_sigma("age", params["assumed_age_dex"]),
+                           implied_summary.lookup(centre_error, codes),
                            params["intrinsic_dex"], floor=params["floor_dex"])
-    deviation = excess_sigma(log_age, sigma, implied - params["band_below_dex"],
-                             implied + params["band_above_dex"])
-    applies = phase_is(batch, *GIANT_PHASES) & (count >= params["min_evolved"])
+    deviation = excess_sigma(log_age, sigma,
+                             implied_summary.lookup(implied - params["band_below_dex"], codes),
+                             implied_summary.lookup(implied + params["band_above_dex"], codes))
+    applies = phase_is(batch, *GIANT_PHASES) & implied_summary.lookup(
+        count >= params["min_evolved"], codes)
     with np.errstate(invalid="ignore"):
         failed = applies & (deviation > params["threshold"])
         beyond = deviation > params["error_threshold"]
+    row_implied = implied_summary.lookup(implied, codes)
 
     def describe(rows: np.ndarray) -> list[str]:
         groups = group_labels_at(batch.groups, rows)
@@ -62,11 +70,13 @@ def evaluate(batch: StarBatch, params: Params) -> Outcome:
             f"cluster {g} is catalogued at {10 ** a / 1e9:.3g} Gyr, but its {n:.0f} evolved "
             f"members' masses imply {10 ** m / 1e9:.3g} Gyr (median main-sequence "
             f"lifetime): {d:.1f} sigma"
-            for g, (a, m, n, d) in zip(groups, at_rows(rows, log_age, implied, count,
-                                                        deviation), strict=True)
+            for g, (a, m, d), n in zip(
+                groups, at_rows(rows, log_age, row_implied, deviation),
+                implied_summary.lookup(count, codes[rows]).astype(float).tolist(),
+                strict=True)
         ]
 
-    return Outcome(failed, describe, log_age, implied, deviation, applies, beyond)
+    return Outcome(failed, describe, log_age, row_implied, deviation, applies, beyond)
 
 
 CHECK = Check(
