@@ -195,7 +195,9 @@ def canonical_batch(profile: Profile, batch: pa.RecordBatch, first_row: int,
 
 def _canonical_batch(profile: Profile, batch: pa.RecordBatch, first_row: int,
                      labels: Labels) -> StarBatch:
-    stars = StarBatch(first_row, batch.num_rows, pc.cast(batch[profile.id_column], pa.string()))
+    ids = (pc.cast(batch[profile.id_column], pa.string()) if profile.id_column
+           else pa.nulls(batch.num_rows, pa.string()))  # a values-only read (group pass)
+    stars = StarBatch(first_row, batch.num_rows, ids)
     if profile.group_column:
         stars.groups = batch[profile.group_column]
         stars.group_codes = labels.groups.codes(stars.groups)

@@ -14,7 +14,7 @@ from __future__ import annotations
 import copy
 from collections import Counter
 from collections.abc import Callable, Collection, Iterator, Sequence
-from dataclasses import dataclass, field, replace
+from dataclasses import dataclass, field
 from typing import Any, Protocol
 
 import numpy as np
@@ -281,9 +281,9 @@ def start_run(catalogue: Catalogue, profile: Profile, rules: Sequence[Rule]
 def group_plan(rules: Sequence[Rule], profile: Profile
                ) -> tuple[dict[str, GroupVariable], Profile] | None:
     """What pass 1 aggregates and reads: the group variables of ``rules`` and the profile
-    restricted to the quantities they need, without their errors (group variables are
-    functions of values: no error column is read); None when no rule needs a group pass
-    (or the profile has no group column).
+    reading only the group and the values of the quantities they need (group variables
+    are functions of values: no id or error column is read); None when no rule needs a
+    group pass (or the profile has no group column).
     """
     group_rules = [rule for rule in rules if rule.check.group_variables]
     if not group_rules or not profile.group_column:
@@ -292,10 +292,7 @@ def group_plan(rules: Sequence[Rule], profile: Profile
                  for name, variable in rule.check.group_variables.items()}
     needed = {quantity for rule in group_rules for quantity in rule.needs}
     needed |= {"initial_mass", "feh"}  # optional inputs of the lifetime relations
-    reading = profile.restricted_to(needed)
-    return variables, replace(reading, quantities={
-        name: replace(mapping, error_column=None, error_value=None)
-        for name, mapping in reading.quantities.items()})
+    return variables, profile.values_only(needed)
 
 
 def _group_pass(rules: Sequence[Rule], profile: Profile,
@@ -305,8 +302,10 @@ def _group_pass(rules: Sequence[Rule], profile: Profile,
     """Pass 1: aggregate every group variable the rules need over the whole catalogue.
 
     Only the columns of the quantities the group rules need are read.  With ``pieces``,
-    each worker process accumulates whole pieces and the partial states are merged in row
-    order, which gives exactly the statistics of one pass (see GroupAccumulator.merge).
+    each worker process accumulates one run of consecutive pieces and the partial states
+    are merged in row order, which gives exactly the statistics of one pass (see
+    GroupAccumulator.merge); one run per worker keeps the merging in this process to one
+    per worker.
     """
     plan = group_plan(rules, profile)
     if plan is None:
@@ -318,16 +317,19 @@ def _group_pass(rules: Sequence[Rule], profile: Profile,
             accumulator.add(stars)
         return accumulator.finish(len(labels.groups.code_of))
 
-    def accumulate_piece(index: int) -> tuple[GroupAccumulator, list[str]]:
+    runs = [run for run in np.array_split(np.arange(len(pieces)), workers) if len(run)]
+
+    def accumulate_run(index: int) -> tuple[GroupAccumulator, list[str]]:
         partial = GroupAccumulator(variables)
-        for first_row, batch in pieces[index].batches(reading.columns, batch_rows,
-                                                      dictionary=reading.label_columns):
-            partial.add(canonical_batch(reading, batch, first_row, labels))
+        for piece in runs[index]:
+            for first_row, batch in pieces[piece].batches(reading.columns, batch_rows,
+                                                          dictionary=reading.label_columns):
+                partial.add(canonical_batch(reading, batch, first_row, labels))
         partial.settle()
         partial.variables = {}  # code, not state: only the samples go back
         return partial, list(labels.groups.code_of)  # this process's labels, in code order
 
-    for partial, group_labels in forked_map(accumulate_piece, len(pieces), workers):
+    for partial, group_labels in forked_map(accumulate_run, len(runs), workers):
         accumulator.merge(partial, labels.groups.register(group_labels))
     return accumulator.finish(len(labels.groups.code_of))
 

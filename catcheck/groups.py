@@ -196,10 +196,9 @@ class _BottomSample:
             return
         self._grow(int(groups.max()) + 1)
         self.counts[groups] += other.counts  # codes are distinct: no repeated index
-        mapped = groups[other.codes]
-        top = other.keys & _HASH_MASK
-        below = np.flatnonzero(top < self.cutoff[mapped])
-        self._offer(_sort_key(mapped[below], top[below]), other.values[below])
+        keys, values = _renumbered(other.keys, other.values, groups)
+        below = np.flatnonzero((keys & _HASH_MASK) < self.cutoff[_codes_of(keys)])
+        self._offer(keys[below], values[below], in_order=True)
 
     def _offer(self, keys: np.ndarray, values: np.ndarray, in_order: bool = False) -> None:
         """Queue entries for the next merge; merge when enough wait.
@@ -317,6 +316,25 @@ class _RowKeys:
         order = _sorted_order(keys)
         rows = rows[order]
         return cls(rows, codes[rows], keys[order])
+
+
+def _renumbered(keys: np.ndarray, values: np.ndarray, codes: np.ndarray
+                ) -> tuple[np.ndarray, np.ndarray]:
+    """Entries sorted by key, their group ``c`` renamed ``codes[c]``, sorted by new key.
+
+    Renaming keeps each group's entries together and in order, so only the groups need
+    reordering (one small sort), not the entries: linear time in the entries.
+    """
+    groups, starts, entries = _group_runs(keys)
+    if not len(groups):
+        return keys, values
+    new = codes[groups]
+    by_new = np.argsort(new, kind="stable")
+    starts, entries = starts[by_new], entries[by_new]
+    first_out = np.cumsum(entries) - entries
+    order = np.repeat(starts - first_out, entries) + np.arange(len(keys))
+    renamed = _sort_key(np.repeat(new[by_new], entries), keys[order] & _HASH_MASK)
+    return renamed, values[order]
 
 
 def _codes_of(keys: np.ndarray) -> np.ndarray:

@@ -75,7 +75,8 @@ class Profile:
     """A validated profile."""
 
     source: str
-    id_column: str
+    #: None only in a profile that reads values alone (:meth:`values_only`)
+    id_column: str | None
     group_column: str | None = None
     quantities: dict[str, QuantityMapping] = field(default_factory=dict)
     phases: dict[str, str] = field(default_factory=dict)
@@ -84,7 +85,7 @@ class Profile:
     @property
     def columns(self) -> list[str]:
         """Every catalogue column the profile reads, each once, in a stable order."""
-        names = [self.id_column]
+        names = [self.id_column] if self.id_column else []
         if self.group_column:
             names.append(self.group_column)
         for mapping in self.quantities.values():
@@ -107,10 +108,12 @@ class Profile:
             self.groups is not None and quantity in self.groups.quantities
         )
 
-    def restricted_to(self, quantities: Collection[str]) -> Profile:
-        """The same profile mapping only ``quantities`` (for reads that need fewer columns)."""
-        return replace(self, quantities={name: mapping for name, mapping in
-                                         self.quantities.items() if name in quantities})
+    def values_only(self, quantities: Collection[str]) -> Profile:
+        """The profile reading only the group and the values of ``quantities``: no id and
+        no error column (pass 1 of the group pass; its batches have no ids)."""
+        return replace(self, id_column=None, quantities={
+            name: replace(mapping, error_column=None, error_value=None)
+            for name, mapping in self.quantities.items() if name in quantities})
 
     def validate_columns(self, schema: pa.Schema, where: str) -> None:
         """Check every mapped column exists in ``schema`` and numeric ones hold numbers."""
@@ -139,7 +142,7 @@ class Profile:
                     )
 
     def _column_keys(self) -> list[tuple[str, str]]:
-        keys = [("id", self.id_column)]
+        keys = [("id", self.id_column)] if self.id_column else []
         if self.group_column:
             keys.append(("group", self.group_column))
         for mapping in self.quantities.values():
