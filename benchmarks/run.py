@@ -33,6 +33,7 @@ import sys
 import tempfile
 import threading
 import time
+from collections.abc import Callable
 from pathlib import Path
 
 
@@ -128,6 +129,42 @@ def child(args: argparse.Namespace) -> None:
     print(json.dumps({"seconds": seconds, "peak_mb": memory.peak_kb / 1024.0}))
 
 
+def _numpy_work() -> None:
+    """Array arithmetic on batch-sized float64 arrays, as the rules do (about 0.5 s)."""
+    import numpy as np
+
+    values = np.random.default_rng(1).random(262_144)
+    for _ in range(1500):
+        np.sqrt(values) * 2.0 + values
+
+
+def _python_work() -> None:
+    """Plain Python, as message formatting is (about 0.5 s)."""
+    total = 0
+    for number in range(10_000_000):
+        total += number
+
+
+def parallel_capacity(work: Callable[[], None]) -> float:
+    """How many times the work of one process two forked processes get done in the same
+    time on this machine (2.0 on two free, independent cores): the ceiling of what
+    ``--workers 2`` can gain over one worker.  Linux only (fork)."""
+    started = time.perf_counter()
+    work()
+    alone = time.perf_counter() - started
+    started = time.perf_counter()
+    children = []
+    for _ in range(2):
+        pid = os.fork()
+        if pid == 0:
+            work()
+            os._exit(0)
+        children.append(pid)
+    for pid in children:
+        os.waitpid(pid, 0)
+    return 2 * alone / (time.perf_counter() - started)
+
+
 def run_case(case: str, catalogue: Path, profile: Path, args: argparse.Namespace,
              out: Path) -> dict[str, float]:
     command = [sys.executable, __file__, "--child", case, "--catalogue", str(catalogue),
@@ -162,6 +199,10 @@ def main() -> None:
     data = args.data or Path(tempfile.mkdtemp(prefix="catcheck-bench-"))
     print(f"batch rows: {args.batch_rows:,}; best of {args.repeat}; peak memory (PSS) per case "
           "(each case in its own process, worker processes added)")
+    print(f"this machine: {os.cpu_count()} cores; two processes at once do "
+          f"{parallel_capacity(_numpy_work):.2f}x the array arithmetic of one and "
+          f"{parallel_capacity(_python_work):.2f}x the plain Python (2.00x on two free cores; "
+          "the ceiling for --workers 2)")
     print(f"{'rows':>12} {'case':<8} {'seconds':>9} {'ratio':>7} {'peak PSS MB':>12}")
     for rows in args.rows:
         folder = data / f"demo-{rows}"
@@ -181,6 +222,10 @@ def main() -> None:
         for case, result in results.items():
             print(f"{rows:>12,} {case:<8} {result['seconds']:>9.2f} "
                   f"{result['seconds'] / scan:>6.2f}x {result['peak_mb']:>12.0f}")
+        for one, two in (("all", "all-w2"), ("core", "core-w2")):
+            if one in results and two in results:
+                gain = results[one]["seconds"] / results[two]["seconds"]
+                print(f"{rows:>12,} {two} is {gain:.2f}x as fast as {one}")
 
 
 if __name__ == "__main__":
