@@ -16,9 +16,12 @@ Two layers, so a catalogue of any size is drawn in bounded memory and time:
 
 from __future__ import annotations
 
+import contextlib
+import gc
 import io
+import itertools
 import math
-from collections.abc import Mapping, Sequence
+from collections.abc import Iterator, Mapping, Sequence
 from dataclasses import dataclass, field
 from typing import Any
 
@@ -58,7 +61,8 @@ class Axis:
 
     Stars are binned in ``coordinate`` (log10 of the canonical value when ``log``) on a
     fixed grid from ``low`` to ``high`` in steps of ``step``; with ``show_linear`` the
-    axis is drawn in the canonical value itself (Teff in K on a Kiel diagram).
+    axis is labelled in the canonical value itself (Teff in K on a Kiel diagram: still
+    drawn in log10, its ticks at round values).
     """
 
     quantity: str
@@ -88,10 +92,6 @@ class Axis:
     def coordinate(self, stars: StarBatch) -> np.ndarray:
         """The binned coordinate of every star of a batch (NaN where not usable)."""
         return stars.log10(self.quantity) if self.log else stars.values[self.quantity]
-
-    def shown(self, coordinate: np.ndarray) -> np.ndarray:
-        """Coordinates as drawn on the axis."""
-        return np.power(10.0, coordinate) if self.show_linear else coordinate
 
 
 @dataclass(frozen=True)
@@ -323,7 +323,20 @@ ABOVE_FRAME_IN = 0.45
 BELOW_FRAME_IN = 0.62
 COLOUR_BAR_IN = (6.02, 0.175)  # left, width
 LEGEND_LEFT_IN = 0.1
+LEGEND_TITLE = "flagged rows by rule"
+LEGEND_FONT_PT, LEGEND_TITLE_PT = 7.5, 8.0
+#: the legend's spacing in units of its font size (matplotlib's legend defaults but for
+#: the handle-to-text pad and the column spacing; "border_axes_pad" insets the legend
+#: from its place)
+LEGEND_SPACING = {"border_pad": 0.4, "label_spacing": 0.5, "handle_length": 2.0,
+                  "handle_height": 0.7, "handle_text_pad": 0.4, "column_spacing": 1.5,
+                  "border_axes_pad": 0.5}
+#: room for the legend's title and each of its rows when sizing the canvas before the
+#: legend is measured (generous: the image is cut to the measured height afterwards)
+LEGEND_ROOM_IN = (0.45, 0.2)
 DPI = 100
+#: zlib level of the PNG files: 3 makes them as small as the default 6, in less time
+PNG_COMPRESSION = 3
 
 
 def render(grid: DensityGrid, points: Mapping[str, RulePoints],
@@ -333,149 +346,377 @@ def render(grid: DensityGrid, points: Mapping[str, RulePoints],
     ``rule_order`` fixes each rule's colour and marker shape (the run's flagged rules in
     order); ``flagged`` gives each rule's total number of flags for the legend.  Flagged
     stars beyond the axes are drawn on the frame as outlined triangles pointing outwards.
+
+    Drawn cheaply, as this is a fixed cost of every run: everything in the binned
+    coordinates (log10 Teff on both diagrams), where the cells are even, so the density is
+    one image (an axis shown in linear values, Teff in K, is labelled at round values
+    placed at their log10: :func:`round_ticks`); no text through mathtext (its parser
+    costs a good part of a second on first use); the flagged stars as marker lines; one
+    canvas for measuring and drawing, so no text is measured twice (it is taller than
+    needed and the image is cut to the legend afterwards); no garbage collection while
+    drawing (see :func:`_collection_paused`).
     """
-    import matplotlib
-    from matplotlib.backends.backend_agg import FigureCanvasAgg
-    from matplotlib.colors import LinearSegmentedColormap, LogNorm
-    from matplotlib.figure import Figure
-    from matplotlib.lines import Line2D
+    with _collection_paused():
+        matplotlib = load_matplotlib()
+        from matplotlib.backends.backend_agg import FigureCanvasAgg
+        from matplotlib.colors import LinearSegmentedColormap, LogNorm
+        from matplotlib.figure import Figure
+        from matplotlib.lines import Line2D
 
-    spec = grid.spec
-    image = grid.image()
-    x_lo, x_hi = _window(image.sum(axis=1), spec.x)
-    y_lo, y_hi = _window(image.sum(axis=0), spec.y)
-    x_factor = max(1, math.ceil((x_hi - x_lo) / DISPLAY_CELLS))
-    y_factor = max(1, math.ceil((y_hi - y_lo) / DISPLAY_CELLS))
-    shown = _coarsen(image[x_lo:x_hi, y_lo:y_hi], x_factor, y_factor)
-    x_edges = spec.x.low + spec.x.step * (x_lo + x_factor * np.arange(shown.shape[0] + 1))
-    y_edges = spec.y.low + spec.y.step * (y_lo + y_factor * np.arange(shown.shape[1] + 1))
-    x_range = spec.x.shown(np.array([x_edges[0], x_edges[-1]]))
-    y_range = spec.y.shown(np.array([y_edges[0], y_edges[-1]]))
-
-    with matplotlib.rc_context(_STYLE):
-        figure = Figure(figsize=(FIGURE_WIDTH_IN, 6.0), dpi=DPI)
-        FigureCanvasAgg(figure)  # a renderer, to measure the legend
-        ax = figure.add_axes((0.1, 0.3, 0.74, 0.6))
-        colour_axes = figure.add_axes((0.86, 0.3, 0.025, 0.6))
-        density = np.ma.masked_equal(shown.T, 0)
-        if density.count():
-            mesh = ax.pcolormesh(spec.x.shown(x_edges), spec.y.shown(y_edges), density,
-                                 cmap=LinearSegmentedColormap.from_list(
-                                     "catcheck-density", DENSITY_COLOURS),
-                                 norm=LogNorm(vmin=1, vmax=max(2, int(density.max()))),
-                                 shading="flat", rasterized=True)
-            bar = figure.colorbar(mesh, cax=colour_axes)
-            bar.set_label("stars per cell")
-        else:
-            colour_axes.set_axis_off()
-            ax.text(0.5, 0.5, f"none of the {grid.placed + grid.off_grid:,} rows with both "
-                    "values\nlies inside these axes", transform=ax.transAxes, ha="center",
-                    va="center", color="#5c6b78", fontsize=10)
-        on_edge, legend = 0, {}
+        spec = grid.spec
+        image = grid.image()
+        x_lo, x_hi = _window(image.sum(axis=1), spec.x)
+        y_lo, y_hi = _window(image.sum(axis=0), spec.y)
+        x_factor = max(1, math.ceil((x_hi - x_lo) / DISPLAY_CELLS))
+        y_factor = max(1, math.ceil((y_hi - y_lo) / DISPLAY_CELLS))
+        shown = _coarsen(image[x_lo:x_hi, y_lo:y_hi], x_factor, y_factor)
+        x_range = spec.x.low + spec.x.step * (x_lo + x_factor * np.array([0, shown.shape[0]]))
+        y_range = spec.y.low + spec.y.step * (y_lo + y_factor * np.array([0, shown.shape[1]]))
         drawn = sorted((r for r in rule_order if r in points),
                        key=lambda r: (-points[r].plotted, rule_order.index(r)))
-        for layer, rule_id in enumerate(drawn):  # the most flagged first, rarer ones on top
-            index = rule_order.index(rule_id)
-            colour, marker = rule_style(index)
-            mine = points[rule_id]
-            x, y = spec.x.shown(mine.x), spec.y.shown(mine.y)
-            directions = edge_directions(x, y, x_range, y_range, spec.x.reversed,
-                                         spec.y.reversed)
-            x = np.clip(x, x_range.min(), x_range.max())
-            y = np.clip(y, y_range.min(), y_range.max())
-            size = 15.0 if len(x) < 500 else 8.0 if len(x) < 2000 else 4.0
-            inside = directions == ""
-            ax.scatter(x[inside], y[inside], s=size, marker=marker, color=colour,
-                       alpha=0.85, linewidths=0, zorder=3 + layer)
-            for direction, edge_marker in EDGE_MARKERS.items():
-                here = directions == direction
-                if here.any():
-                    ax.scatter(x[here], y[here], s=28.0, marker=edge_marker, color=colour,
-                               edgecolors=EDGE_OUTLINE, linewidths=0.6,
-                               zorder=3 + len(drawn) + layer, clip_on=False)
-            on_edge += int((~inside).sum())
-            legend[index] = (Line2D([], [], linestyle="none", marker=marker, color=colour,
-                                    markersize=6.0, markeredgewidth=0),
-                             legend_label(rule_id, flagged.get(rule_id, mine.plotted), mine,
-                                          spec))
-        for axis, scale, shown_range in ((spec.x, ax.xaxis, x_range),
-                                         (spec.y, ax.yaxis, y_range)):
-            if axis.show_linear:  # the values on a log scale: even cells, readable ticks
-                _log_scale_in_values(ax, scale, shown_range)
-        ax.set_xlim(*(x_range[::-1] if spec.x.reversed else x_range))
-        ax.set_ylim(*(y_range[::-1] if spec.y.reversed else y_range))
-        ax.set_xlabel(spec.x.label)
-        ax.set_ylabel(spec.y.label)
-        ax.set_title(spec.title, loc="left", fontweight="bold")
-        ax.grid(True, color="#d9dde1", linewidth=0.5, zorder=0)
-        ax.set_axisbelow(True)
-        entries = [legend[index] for index in sorted(legend)]
-        if on_edge:
-            entries.append((Line2D([], [], linestyle="none", marker=EDGE_MARKERS["right"],
-                                   color="#b9c3cc", markeredgecolor=EDGE_OUTLINE,
-                                   markersize=6.5, markeredgewidth=0.6),
-                            "beyond the axes: on the frame, pointing outwards"))
-        legend_height = _legend(figure, entries)
-        _lay_out(figure, ax, colour_axes, legend_height)
-        buffer = io.BytesIO()
-        figure.savefig(buffer, format="png", dpi=DPI, metadata={"Software": None})
-    return RenderedDiagram(spec, buffer.getvalue(), grid.placed + grid.off_grid,
+
+        with matplotlib.rc_context(_STYLE):
+            canvas_height = _whole_pixels(ABOVE_FRAME_IN + FRAME_IN[2] + BELOW_FRAME_IN
+                                          + LEGEND_ROOM_IN[0]
+                                          + LEGEND_ROOM_IN[1] * (len(drawn) + 1))
+            figure = Figure(figsize=(FIGURE_WIDTH_IN, canvas_height), dpi=DPI)
+            canvas = FigureCanvasAgg(figure)
+            ax = figure.add_axes((0.1, 0.3, 0.74, 0.6))
+            colour_axes = figure.add_axes((0.86, 0.3, 0.025, 0.6))
+            density = np.ma.masked_equal(shown.T, 0)
+            if density.count():
+                picture = ax.imshow(density, origin="lower", aspect="auto",
+                                    interpolation="nearest", zorder=1,
+                                    extent=(*x_range, *y_range),
+                                    cmap=LinearSegmentedColormap.from_list(
+                                        "catcheck-density", DENSITY_COLOURS),
+                                    norm=LogNorm(vmin=1, vmax=max(2, int(density.max()))))
+                bar = figure.colorbar(picture, cax=colour_axes)
+                bar.formatter = _plain_text_labels(bar.formatter)
+                bar.minorformatter = _plain_text_labels(bar.minorformatter)
+                bar.set_label("stars per cell")
+                _minor_ticks_as_one_line(bar)
+            else:
+                colour_axes.set_axis_off()
+                ax.text(0.5, 0.5, f"none of the {grid.placed + grid.off_grid:,} rows with "
+                        "both values\nlies inside these axes", transform=ax.transAxes,
+                        ha="center", va="center", color="#5c6b78", fontsize=10)
+            on_edge, by_rule = 0, {}
+            for layer, rule_id in enumerate(drawn):  # the most flagged first, rarer on top
+                index = rule_order.index(rule_id)
+                colour, marker = rule_style(index)
+                mine = points[rule_id]
+                directions = edge_directions(mine.x, mine.y, x_range, y_range,
+                                             spec.x.reversed, spec.y.reversed)
+                x = np.clip(mine.x, x_range[0], x_range[1])
+                y = np.clip(mine.y, y_range[0], y_range[1])
+                area = 15.0 if len(x) < 500 else 8.0 if len(x) < 2000 else 4.0  # points^2
+                inside = directions == ""
+                ax.plot(x[inside], y[inside], linestyle="none", marker=marker,
+                        markersize=math.sqrt(area), color=colour, alpha=0.85, markeredgewidth=0,
+                        zorder=3 + layer)
+                for direction, edge_marker in EDGE_MARKERS.items():
+                    here = directions == direction
+                    if here.any():
+                        ax.plot(x[here], y[here], linestyle="none", marker=edge_marker,
+                                markersize=math.sqrt(28.0), color=colour,
+                                markeredgecolor=EDGE_OUTLINE, markeredgewidth=0.6,
+                                zorder=3 + len(drawn) + layer, clip_on=False)
+                on_edge += int((~inside).sum())
+                by_rule[index] = (Line2D([], [], linestyle="none", marker=marker,
+                                         color=colour, markersize=6.0, markeredgewidth=0),
+                                  legend_label(rule_id, flagged.get(rule_id, mine.plotted),
+                                               mine, spec))
+            for axis, scale, coordinate_range in ((spec.x, ax.xaxis, x_range),
+                                                  (spec.y, ax.yaxis, y_range)):
+                if axis.show_linear:  # log10 on the page, labelled in values at round values
+                    _label_in_values(scale, coordinate_range)
+            ax.set_xlim(*(x_range[::-1] if spec.x.reversed else x_range))
+            ax.set_ylim(*(y_range[::-1] if spec.y.reversed else y_range))
+            ax.set_xlabel(spec.x.label)
+            ax.set_ylabel(spec.y.label)
+            # y given: nothing above the frame to avoid, so no search for a place
+            ax.set_title(spec.title, loc="left", fontweight="bold", y=1.0)
+            ax.grid(True, color="#d9dde1", linewidth=0.5, zorder=0)
+            ax.set_axisbelow(True)
+            entries = [by_rule[index] for index in sorted(by_rule)]
+            if on_edge:
+                entries.append((Line2D([], [], linestyle="none", marker=EDGE_MARKERS["right"],
+                                       color="#b9c3cc", markeredgecolor=EDGE_OUTLINE,
+                                       markersize=6.5, markeredgewidth=0.6),
+                                "beyond the axes: on the frame, pointing outwards"))
+            legend = _Legend(figure, entries) if entries else None
+            height = _image_height(legend.height if legend is not None else 0.0)
+            if height > canvas_height:  # more room than foreseen: a new canvas
+                canvas_height = _whole_pixels(height)
+                figure.set_size_inches(FIGURE_WIDTH_IN, canvas_height)
+            _lay_out(figure, ax, colour_axes, legend, canvas_height)
+            canvas.draw()
+            png = _png(np.asarray(canvas.buffer_rgba())[:int(height * DPI)])
+    return RenderedDiagram(spec, png, grid.placed + grid.off_grid,
                            grid.placed + grid.off_grid - int(shown.sum()), on_edge)
 
 
-def _legend(figure: Any, entries: Sequence[tuple[Any, str]]) -> float:
-    """Put the legend of ``entries`` (handle, label) under the plot, in two columns when
-    they fit the figure's width, else one; returns its height in inches (0 without one)."""
-    if not entries:
-        return 0.0
+def load_matplotlib() -> Any:
+    """Import the parts of matplotlib that :func:`render` draws with (not pyplot) and
+    return the package.  Called before forking, the forked processes draw without
+    importing; no garbage collection meanwhile (importing makes many objects)."""
+    with _collection_paused():
+        import matplotlib
+        import matplotlib.backends.backend_agg
+        import matplotlib.figure
 
-    def place(columns: int) -> Any:
-        return figure.legend([handle for handle, _ in entries],
-                             [label for _, label in entries], loc="upper left",
-                             ncol=columns, frameon=False, title="flagged rows by rule",
-                             title_fontsize=8, fontsize=7.5, alignment="left",
-                             handletextpad=0.4, columnspacing=1.5)
-
-    renderer = figure.canvas.get_renderer()
-    legend = place(2)
-    box = legend.get_window_extent(renderer)
-    if box.width > (FIGURE_WIDTH_IN - 2 * LEGEND_LEFT_IN) * figure.dpi:
-        legend.remove()
-        box = place(1).get_window_extent(renderer)
-    return box.height / figure.dpi
+    return matplotlib
 
 
-def _lay_out(figure: Any, ax: Any, colour_axes: Any, legend_height: float) -> None:
-    """Size the figure to the plot and the legend under it; place both (in inches)."""
-    below = BELOW_FRAME_IN + (legend_height + 0.12 if legend_height else 0.0)
-    height = ABOVE_FRAME_IN + FRAME_IN[2] + below
-    figure.set_size_inches(FIGURE_WIDTH_IN, height)
-    left, width, frame_height = FRAME_IN
-    ax.set_position((left / FIGURE_WIDTH_IN, below / height, width / FIGURE_WIDTH_IN,
-                     frame_height / height))
-    colour_axes.set_position((COLOUR_BAR_IN[0] / FIGURE_WIDTH_IN, below / height,
-                              COLOUR_BAR_IN[1] / FIGURE_WIDTH_IN, frame_height / height))
-    for legend in figure.legends:
-        legend.set_bbox_to_anchor((LEGEND_LEFT_IN / FIGURE_WIDTH_IN,
-                                   (legend_height + 0.08) / height),
-                                  transform=figure.transFigure)
+def _png(pixels: np.ndarray) -> bytes:
+    """An opaque RGBA image (rows from the top) as PNG bytes: RGB, no metadata but the
+    resolution, so the same pixels give the same bytes."""
+    from PIL import Image  # a dependency of matplotlib
+
+    buffer = io.BytesIO()
+    Image.fromarray(np.ascontiguousarray(pixels[:, :, :3])).save(
+        buffer, format="png", dpi=(DPI, DPI), compress_level=PNG_COMPRESSION)
+    return buffer.getvalue()
 
 
-def _log_scale_in_values(ax: Any, scale: Any, shown_range: np.ndarray) -> None:
-    """Draw an axis on a log scale with ticks at round values (Teff in K), as many as the
-    shown range has room for."""
-    from matplotlib.ticker import FixedLocator, NullLocator, StrMethodFormatter
+def _minor_ticks_as_one_line(bar: Any) -> None:
+    """Draw a colour bar's minor ticks, when none is labelled (a log scale over more than a
+    decade: some thirty ticks), as one line of tick marks instead of an object per tick;
+    they look the same."""
+    import matplotlib
+    from matplotlib.lines import Line2D
+    from matplotlib.markers import TICKRIGHT
+    from matplotlib.ticker import NullLocator
 
-    (ax.set_xscale if scale is ax.xaxis else ax.set_yscale)("log")
-    low, high = float(shown_range.min()), float(shown_range.max())
+    axis = bar.ax.yaxis
+    low, high = sorted(axis.get_view_interval())
+    where = axis.get_minorticklocs()
+    where = where[(where >= low) & (where <= high)]
+    rc = matplotlib.rcParams
+    if (bar.orientation != "vertical" or rc["ytick.direction"] != "out"
+            or any(bar.minorformatter.format_ticks(where))):
+        return
+    bar.minorlocator = NullLocator()
+    bar.ax.add_artist(Line2D(np.ones(len(where)), where, linestyle="none", marker=TICKRIGHT,
+                             markersize=rc["ytick.minor.size"], color=rc["ytick.color"],
+                             markeredgewidth=rc["ytick.minor.width"], clip_on=False,
+                             transform=bar.ax.get_yaxis_transform()))
+
+
+@contextlib.contextmanager
+def _collection_paused() -> Iterator[None]:
+    """Garbage collection paused inside (and left as it was after): drawing makes some
+    hundred thousand small objects, which set off full collections over everything the
+    process holds (a tenth of a second and more per figure); the figure's own garbage is
+    collected later."""
+    enabled = gc.isenabled()
+    gc.disable()
+    try:
+        yield
+    finally:
+        if enabled:
+            gc.enable()
+
+
+class _Legend:
+    """The legend under the plot: per rule its marker and its label, under a title, in two
+    columns when they fit the figure's width, else one.
+
+    Laid out as matplotlib's own legend lays out these entries (the same spacing, in units
+    of the font size: :data:`LEGEND_SPACING`), but measured once and drawn as plain texts
+    and markers: matplotlib's legend measures and lays out its boxes again at every step,
+    a good part of a figure's drawing time.  The labels are measured on the canvas they are
+    drawn on, so drawing reuses the measurements.
+    """
+
+    def __init__(self, figure: Any, entries: Sequence[tuple[Any, str]]) -> None:
+        from matplotlib.transforms import IdentityTransform
+
+        self.figure = figure
+        renderer = figure.canvas.get_renderer()
+        pixels = figure.dpi / 72.0 * LEGEND_FONT_PT  # pixels per unit of LEGEND_SPACING
+        self.space = {name: size * pixels for name, size in LEGEND_SPACING.items()}
+
+        least_ascent: dict[float, float] = {}
+
+        def text(label: str, size: float) -> tuple[Any, tuple[float, float, float]]:
+            """A text drawn at its baseline's left end, and its (width, ascent, descent)
+            as matplotlib's legend reckons them (the ascent at least that of "lp")."""
+            artist = figure.text(0.0, 0.0, label, fontsize=size, ha="left", va="baseline",
+                                 transform=IdentityTransform())
+            box = artist.get_window_extent(renderer)
+            if size not in least_ascent:
+                _, height, descent = renderer.get_text_width_height_descent(
+                    "lp", artist.get_fontproperties(), ismath=False)
+                least_ascent[size] = height - descent
+            return artist, (box.width, max(least_ascent[size], box.y1), -box.y0)
+
+        self.title, self.title_box = text(LEGEND_TITLE, LEGEND_TITLE_PT)
+        labels = [text(label, LEGEND_FONT_PT) for _, label in entries]
+        self.handles = [handle for handle, _ in entries]
+        self.labels = [artist for artist, _ in labels]
+        self.boxes = [box for _, box in labels]
+        self.columns = 2
+        if self.width() > (FIGURE_WIDTH_IN - 2 * LEGEND_LEFT_IN) * figure.dpi:
+            self.columns = 1
+
+    def column_rows(self) -> list[range]:
+        """The entries of each column (the first columns take one more when they do not
+        share out evenly)."""
+        per_column = math.ceil(len(self.boxes) / self.columns)
+        return [range(first, min(first + per_column, len(self.boxes)))
+                for first in range(0, len(self.boxes), per_column)]
+
+    def entry(self, index: int) -> tuple[float, float, float]:
+        """An entry's (width, ascent, descent): its handle's box beside its label."""
+        width, ascent, descent = self.boxes[index]
+        return (self.space["handle_length"] + self.space["handle_text_pad"] + width,
+                max(self.space["handle_height"], ascent), max(0.0, descent))
+
+    def width(self) -> float:
+        """The legend's width in pixels."""
+        columns = [max(self.entry(i)[0] for i in rows) for rows in self.column_rows()]
+        inner = sum(columns) + self.space["column_spacing"] * (len(columns) - 1)
+        return max(self.title_box[0], inner) + 2 * self.space["border_pad"]
+
+    def baselines(self) -> list[float]:
+        """Each entry's baseline, in pixels below the first entries' baseline."""
+        baselines = [0.0] * len(self.boxes)
+        for rows in self.column_rows():
+            for previous, index in itertools.pairwise(rows):
+                baselines[index] = (baselines[previous] + self.entry(previous)[2]
+                                    + self.space["label_spacing"] + self.entry(index)[1])
+        return baselines
+
+    def heights(self) -> tuple[float, float]:
+        """(the rows' height above the first baseline, the legend's height) in pixels."""
+        columns = self.column_rows()
+        above = max(self.entry(rows[0])[1] for rows in columns)
+        baselines = self.baselines()
+        below = max(baselines[rows[-1]] + self.entry(rows[-1])[2] for rows in columns)
+        _, title_ascent, title_descent = self.title_box
+        return above, (2 * self.space["border_pad"] + title_ascent + title_descent
+                       + self.space["label_spacing"] + above + below)
+
+    @property
+    def height(self) -> float:
+        """The legend's height in inches."""
+        return self.heights()[1] / self.figure.dpi
+
+    def place(self, left: float, top: float) -> None:
+        """Put the legend's top left corner at (left, top), in pixels of the canvas (its
+        top at ``top`` pixels from the bottom)."""
+        from matplotlib.transforms import IdentityTransform
+
+        pad, space = self.space["border_pad"], self.space
+        _, title_ascent, title_descent = self.title_box
+        self.title.set_position((left + pad, top - pad - title_ascent))
+        above, _ = self.heights()
+        first = top - pad - title_ascent - title_descent - space["label_spacing"] - above
+        baselines = self.baselines()
+        x = left + pad
+        for rows in self.column_rows():
+            for index in rows:
+                y = first - baselines[index]
+                self.handles[index].set_data([x + space["handle_length"] / 2],
+                                             [y + space["handle_height"] / 2])
+                self.handles[index].set_transform(IdentityTransform())
+                self.figure.add_artist(self.handles[index])
+                self.labels[index].set_position(
+                    (x + space["handle_length"] + space["handle_text_pad"], y))
+            x += max(self.entry(i)[0] for i in rows) + space["column_spacing"]
+
+
+def _whole_pixels(inches: float) -> float:
+    """A canvas height of at least ``inches``: whole pixels and a hundredth (so the canvas
+    has the same whole number of pixels however the product with the resolution rounds,
+    and what is drawn sits at the same place below its top on any canvas)."""
+    return (math.ceil(inches * DPI - 1e-6) + 0.01) / DPI
+
+
+def _image_height(legend_height: float) -> float:
+    """The figure's height in inches: the plot, and the legend (of that height) under it."""
+    return (ABOVE_FRAME_IN + FRAME_IN[2] + BELOW_FRAME_IN
+            + (legend_height + 0.12 if legend_height else 0.0))
+
+
+def _lay_out(figure: Any, ax: Any, colour_axes: Any, legend: _Legend | None,
+             canvas_height: float) -> None:
+    """Place the plot and the legend under it (in inches from the canvas's top: the image
+    is its top :func:`_image_height`)."""
+    frame_bottom = (canvas_height - ABOVE_FRAME_IN - FRAME_IN[2]) / canvas_height
+    frame_height = FRAME_IN[2] / canvas_height
+    left, width, _ = FRAME_IN
+    ax.set_position((left / FIGURE_WIDTH_IN, frame_bottom, width / FIGURE_WIDTH_IN,
+                     frame_height))
+    colour_axes.set_position((COLOUR_BAR_IN[0] / FIGURE_WIDTH_IN, frame_bottom,
+                              COLOUR_BAR_IN[1] / FIGURE_WIDTH_IN, frame_height))
+    if legend is not None:
+        inset = legend.space["border_axes_pad"]
+        # 0.04 in under the room below the frame (the image ends 0.08 in under the legend)
+        top = canvas_height - ABOVE_FRAME_IN - FRAME_IN[2] - BELOW_FRAME_IN - 0.04
+        legend.place(LEGEND_LEFT_IN * figure.dpi + inset, top * figure.dpi - inset)
+
+
+def round_ticks(low: float, high: float) -> list[float]:
+    """Round values from ``low`` to ``high`` (> 0) for an axis on a log scale, as many as
+    its span has room for: 3,000, 4,000, 5,000, 7,000, 10,000 over a short span; 3,000,
+    10,000, 30,000 over several decades."""
     decades = math.log10(high / low)
     steps = ((1, 1.5, 2, 3, 4, 5, 7) if decades < 0.7 else (1, 2, 3, 5) if decades < 1.2
              else (1, 2, 5) if decades < 2 else (1, 3))
     ticks = [m * 10.0 ** e for e in range(math.floor(math.log10(low)),
                                           math.ceil(math.log10(high)) + 1) for m in steps]
-    scale.set_major_locator(FixedLocator([t for t in ticks if low <= t <= high]))
-    scale.set_major_formatter(StrMethodFormatter("{x:,.0f}"))
+    return [t for t in ticks if low <= t <= high]
+
+
+def _label_in_values(scale: Any, coordinate_range: np.ndarray) -> None:
+    """Label an axis drawn in log10 of a value (Teff) in the values themselves: ticks at
+    round values (:func:`round_ticks`), placed at their log10."""
+    from matplotlib.ticker import FixedFormatter, FixedLocator, NullLocator
+
+    ticks = round_ticks(10.0 ** float(coordinate_range.min()),
+                        10.0 ** float(coordinate_range.max()))
+    scale.set_major_locator(FixedLocator(np.log10(ticks)))
+    scale.set_major_formatter(FixedFormatter([f"{t:,.0f}" for t in ticks]))
     scale.set_minor_locator(NullLocator())
+
+
+_SUPERSCRIPTS = str.maketrans("0123456789-", "\u2070\u00b9\u00b2\u00b3\u2074\u2075\u2076"
+                              "\u2077\u2078\u2079\u207b")
+
+
+def plain_text_label(label: str) -> str:
+    """A tick label of matplotlib's log formatters ("$\\mathdefault{10^{3}}$",
+    "$\\mathdefault{2\\times10^{0}}$") as plain text ("10\u00b3", "2\u00d710\u2070"): the same
+    look in the same font, drawn without mathtext."""
+    if not (label.startswith("$") and label.endswith("$")):
+        return label
+    text = label[1:-1].removeprefix("\\mathdefault{").removesuffix("}")
+    text = text.replace("\\times", "\u00d7")
+    head, caret, exponent = text.partition("^{")
+    return head + exponent.removesuffix("}").translate(_SUPERSCRIPTS) if caret else head
+
+
+def _plain_text_labels(formatter: Any) -> Any:
+    """``formatter`` (a matplotlib tick formatter: which ticks it labels is its own
+    choice) with its labels as plain text (:func:`plain_text_label`)."""
+    from matplotlib.ticker import Formatter
+
+    class PlainTextLabels(Formatter):
+        def set_axis(self, axis: Any) -> None:
+            super().set_axis(axis)
+            formatter.set_axis(axis)
+
+        def set_locs(self, locs: Any) -> None:
+            super().set_locs(locs)
+            formatter.set_locs(locs)
+
+        def __call__(self, x: float, pos: int | None = None) -> str:
+            return plain_text_label(formatter(x, pos))
+
+    return PlainTextLabels()
 
 
 _STYLE = {

@@ -29,6 +29,7 @@ from catcheck.diagrams import (
     DiagramData,
     DiagramSpec,
     RenderedDiagram,
+    load_matplotlib,
     render,
     rule_style,
 )
@@ -120,7 +121,10 @@ class VisualReport:
                               flagged)
 
             # each figure after the first is drawn in a forked process at the same time
-            # (drawing is a fixed second or so per figure, most of it matplotlib)
+            # (drawing is a fixed fifth of a second or so per figure); matplotlib is
+            # imported first, once, so the forked processes draw without importing it
+            if len(self.specs) > 1:
+                load_matplotlib()
             others = [ForkedCall(functools.partial(draw, spec)) for spec in self.specs[1:]]
             try:
                 figures = [draw(spec) for spec in self.specs[:1]]

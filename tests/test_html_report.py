@@ -7,6 +7,8 @@ The screenshot test opens the page in headless Chromium (Debian package ``chromi
 from __future__ import annotations
 
 import base64
+import gc
+import io
 import itertools
 import json
 import re
@@ -31,7 +33,9 @@ from catcheck.diagrams import (
     _window,
     edge_directions,
     legend_label,
+    plain_text_label,
     render,
+    round_ticks,
     rule_style,
 )
 
@@ -200,6 +204,85 @@ def test_render_pins_points_beyond_the_axes_to_the_frame() -> None:
     assert drawn.png.startswith(PNG_SIGNATURE) and drawn.size[0] == 700
     assert render(grid, points, ["inside", "beyond"], {"inside": 2, "beyond": 2}).png == (
         drawn.png)  # deterministic
+
+
+def test_every_marker_shape_shows_at_the_smallest_size() -> None:
+    """Rules with thousands of flagged stars get the smallest markers; each shape must still
+    show (matplotlib's scatter drew nothing at all for the filled plus at that size)."""
+    from PIL import Image
+
+    rng = np.random.default_rng(3)
+    grid = DensityGrid(HR_DIAGRAM)
+    grid.add(rng.uniform(3.45, 4.25, 3000), rng.uniform(-1.5, 1.5, 3000))
+    rules = [f"rule-{i}" for i in range(len(RULE_MARKERS))]
+    points = {rule: RulePoints(rng.uniform(3.5 + 0.1 * i, 3.55 + 0.1 * i, 2500),
+                               rng.uniform(-1.0, 1.0, 2500), sampled=2500)
+              for i, rule in enumerate(rules)}
+    drawn = render(grid, points, rules, dict.fromkeys(rules, 2500))
+    pixels = np.asarray(Image.open(io.BytesIO(drawn.png)).convert("RGB")).astype(int)
+    for index in range(len(rules)):
+        colour, marker = rule_style(index)
+        rgb = np.array([int(colour[k:k + 2], 16) for k in (1, 3, 5)])
+        near = int((np.abs(pixels - rgb).max(axis=2) < 40).sum())
+        assert near > 1000, (marker, near)  # the legend's marker alone is some 50 pixels
+
+
+def test_render_sets_no_text_through_mathtext(monkeypatch) -> None:
+    """Its parser costs a good part of a second on first use: tick labels (the colour bar's
+    powers of ten too, on a wide or a narrow range of counts) are plain text."""
+    from matplotlib.mathtext import MathTextParser
+
+    def refuse(*args, **kwargs):
+        raise AssertionError("a text went through mathtext")
+
+    monkeypatch.setattr(MathTextParser, "parse", refuse)
+    rng = np.random.default_rng(4)
+    for stars in (20_000, 40):  # counts per cell up to hundreds; up to a few
+        grid = DensityGrid(KIEL_DIAGRAM)
+        grid.add(rng.normal(3.8, 0.05, stars), rng.normal(4.3, 0.2, stars))
+        drawn = render(grid, {}, [], {})
+        assert drawn.png.startswith(PNG_SIGNATURE)
+
+
+def test_render_leaves_garbage_collection_as_it_was() -> None:
+    grid = DensityGrid(HR_DIAGRAM)
+    grid.add(np.array([3.7, 3.8]), np.array([0.0, 1.0]))
+    assert gc.isenabled()
+    render(grid, {}, [], {})
+    assert gc.isenabled()
+    gc.disable()
+    try:
+        render(grid, {}, [], {})
+        assert not gc.isenabled()
+    finally:
+        gc.enable()
+
+
+def test_legend_takes_two_columns_when_they_fit() -> None:
+    grid = DensityGrid(HR_DIAGRAM)
+    grid.add(np.array([3.7, 3.8]), np.array([0.0, 1.0]))
+    rules = [f"rule-{i}-whose-name-takes-half-the-width-of-the-figure" for i in range(4)]
+    points = {rule: RulePoints(np.array([3.75]), np.array([0.5]), sampled=1) for rule in rules}
+    plot_only = render(grid, {}, [], {})
+    long = render(grid, points, rules, dict.fromkeys(rules, 9000))  # "... (1 of 9,000 ...)"
+    rules = [f"r{i}" for i in range(4)]
+    points = {rule: RulePoints(np.array([3.75]), np.array([0.5]), sampled=1) for rule in rules}
+    short = render(grid, points, rules, dict.fromkeys(rules, 1))  # "r1 (1)"
+    row = 15  # pixels per legend row, about (7.5 pt text and spacing at 100 dpi)
+    assert short.size[1] - plot_only.size[1] == pytest.approx(
+        long.size[1] - plot_only.size[1] - 2 * row, abs=3)  # two rows of two, not four
+
+
+def test_colour_bar_labels_and_round_teff_ticks_are_plain_text() -> None:
+    assert plain_text_label(r"$\mathdefault{10^{3}}$") == "10\u00b3"
+    assert plain_text_label(r"$\mathdefault{10^{-1}}$") == "10\u207b\u00b9"
+    assert plain_text_label(r"$\mathdefault{2\times10^{0}}$") == "2\u00d710\u2070"
+    assert plain_text_label(r"$\mathdefault{1}$") == "1"
+    assert plain_text_label("") == "" and plain_text_label("5,000") == "5,000"
+    # more round values on a short span, fewer per decade on a long one
+    assert round_ticks(4000, 7000) == [4000, 5000, 7000]
+    assert round_ticks(3300, 45000) == [5000, 10000, 20000, 30000]
+    assert round_ticks(2000, 200_000) == [3000, 10000, 30000, 100_000]
 
 
 def test_density_grid_counts_every_star_once() -> None:
