@@ -529,12 +529,6 @@ class GroupAccumulator:
         for name, sample in self.samples.items():
             sample.merge(other.samples[name], codes)
 
-    def settle(self) -> None:
-        """Merge what is pending now (in a worker, before its state is sent for merging:
-        the sorting is then done in parallel and the state sent is smaller)."""
-        for sample in self.samples.values():
-            sample._merge()
-
     def finish(self, groups: int) -> dict[str, GroupSummary]:
         """Statistics by variable, for ``groups`` group codes; the samples are released."""
         summaries = {}
