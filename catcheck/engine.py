@@ -36,6 +36,7 @@ from catcheck.groups import GroupAccumulator, GroupSummary, GroupVariable
 from catcheck.packs import SEVERITY_RANK, Rule
 from catcheck.profile import Profile
 from catcheck.quantities import QUANTITIES
+from catcheck.tuning import release_free_memory
 
 EXAMPLES_PER_RULE = 5
 
@@ -188,6 +189,7 @@ def run_rules(catalogue: Catalogue, profile: Profile, rules: Sequence[Rule], sin
 
     pieces = _pieces(catalogue, workers)
     group_stats = _group_pass(checker.rules, profile, converted, labels)
+    release_free_memory()  # pass 1's samples are gone; pass 2 needs other sizes
     labels.phases.unmapped.clear()  # pass 2 counts the labels again
 
     def with_group_stats(stars: StarBatch) -> BatchResult:

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import contextlib
 import ctypes
 import ctypes.util
 
@@ -30,3 +31,20 @@ def keep_freed_memory(mmap_threshold: int = 32 << 20, trim_threshold: int = 128 
         return False
     return bool(mallopt(_M_MMAP_THRESHOLD, mmap_threshold)) and bool(
         mallopt(_M_TRIM_THRESHOLD, trim_threshold))
+
+
+def release_free_memory() -> None:
+    """Give freed memory back to the system: glibc's retained heap and Arrow's pool.
+
+    Call it before forking workers: a child that reuses a retained free block writes to
+    a page shared with the parent, which copies it, so every worker would otherwise
+    duplicate the parent's retained memory.
+    """
+    import pyarrow as pa
+
+    pa.default_memory_pool().release_unused()
+    name = ctypes.util.find_library("c")
+    if not name:
+        return
+    with contextlib.suppress(OSError, AttributeError):
+        ctypes.CDLL(name).malloc_trim(0)
