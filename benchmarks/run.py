@@ -5,7 +5,8 @@ times, each case in its own fresh Python process so that its peak memory is its 
 
 * ``scan``: a plain pyarrow read of the columns the profile needs, batch by batch;
 * ``core``: ``catcheck.check`` with the core pack, writing a full report;
-* ``all``: the default packs (includes the two-pass cluster check), one worker;
+* ``evo``: the evolution and clusters packs (the two-pass cluster check), one worker;
+* ``all``: the default packs, one worker;
 * ``all-w2``: the same with ``--workers 2`` (worker processes);
 * ``core-w2``: the core pack with ``--workers 2``;
 * ``rows-out``: the default packs, one worker, also writing the annotated catalogue and
@@ -98,6 +99,7 @@ def case_scan(catalogue: Path, profile: Path, batch_rows: int) -> None:
 
 CASES = {  # packs (None: catcheck's default packs), workers, extra keywords
     "core": (["core"], 1, {}),
+    "evo": (["evolution", "clusters"], 1, {}),
     "all": (None, 1, {}),
     "all-w2": (None, 2, {}),
     "core-w2": (["core"], 2, {}),
