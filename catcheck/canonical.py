@@ -121,10 +121,12 @@ class StarBatch:
         self._log_sigmas[key] = sigma
         return sigma
 
-    def group_statistic(self, name: str) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-        """(member count, median, robust spread) of a group variable for each row's group."""
+    def group_summary(self, name: str) -> tuple[GroupSummary, np.ndarray]:
+        """The statistics of group variable ``name`` (by group code) and each row's group
+        code: ``summary.at(codes)`` gives (member count, median, robust spread) per row,
+        and terms computed once per group go through :meth:`GroupSummary.tables`."""
         assert self.group_codes is not None, "group statistics need the profile's group"
-        return self.group_stats[name].at(self.group_codes)
+        return self.group_stats[name], self.group_codes
 
     def environment(self) -> dict[str, np.ndarray]:
         """Values by quantity name, phase codes included, for the expression language."""
@@ -206,7 +208,10 @@ def _canonical_batch(profile: Profile, batch: pa.RecordBatch, first_row: int,
         if name == "phase":
             stars.phase = labels.phases.codes(column)
         elif not QUANTITIES[name].numeric:
-            stars.text[name] = pc.cast(column, pa.string())
+            # labels read as a dictionary stay one (the checks parse each distinct one)
+            text_labels = (pa.types.is_dictionary(column.type)
+                           and pa.types.is_string(column.type.value_type))
+            stars.text[name] = column if text_labels else pc.cast(column, pa.string())
         else:
             _add_numeric(stars, mapping, batch)
     if labels.group_values is not None:

@@ -537,13 +537,6 @@ class GroupAccumulator:
         return summaries
 
 
-def group_summary(batch: StarBatch, name: str) -> tuple[GroupSummary, np.ndarray]:
-    """The statistics of group variable ``name`` and the group code of each row of ``batch``
-    (for terms computed once per group: :meth:`GroupSummary.tables`)."""
-    assert batch.group_codes is not None, "group statistics need the profile's group"
-    return batch.group_stats[name], batch.group_codes
-
-
 def group_labels_at(column: pa.Array, rows: np.ndarray) -> list[str]:
     """The group labels of the given rows as text, for messages."""
     return [str(v) for v in pc.take(column, pa.array(rows, type=pa.int64())).to_pylist()]

@@ -25,7 +25,7 @@ from catcheck.checks.base import (
     fmt,
     sigma_deviation,
 )
-from catcheck.groups import group_labels_at, group_summary
+from catcheck.groups import group_labels_at
 
 #: the standard error of a median is sqrt(pi/2) = 1.2533 times that of a mean (normal data)
 MEDIAN_EFFICIENCY = 1.2533
@@ -56,7 +56,7 @@ def member_check(name: str, quantity: str, member: MemberQuantity, doc: Document
 
     def evaluate(batch: StarBatch, params: Params) -> Outcome:
         values = member.values(batch)
-        summary, codes = group_summary(batch, variable)
+        summary, codes = batch.group_summary(variable)
         # the terms of the group alone, once per group, then looked up for each row
         count, median, spread = summary.tables()
         with np.errstate(invalid="ignore", divide="ignore"):

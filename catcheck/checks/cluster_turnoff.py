@@ -22,7 +22,7 @@ from catcheck.checks.cluster_members import (
     cluster_log_age,
 )
 from catcheck.checks.evolution import GIANT_PHASES, lifetime_mass, metallicity, on_rows
-from catcheck.groups import group_labels_at, group_summary
+from catcheck.groups import group_labels_at
 from catcheck.physics.evolution import log_main_sequence_lifetime
 
 NAME = "cluster_turnoff_age"
@@ -43,8 +43,8 @@ def implied_log_age(batch: StarBatch) -> np.ndarray:
 
 def evaluate(batch: StarBatch, params: Params) -> Outcome:
     """Flag evolved members whose cluster age disagrees with the age their masses imply."""
-    implied_summary, codes = group_summary(batch, NAME)
-    age_summary, _ = group_summary(batch, CLUSTER_LOG_AGE)  # the members' median age
+    implied_summary, codes = batch.group_summary(NAME)
+    age_summary, _ = batch.group_summary(CLUSTER_LOG_AGE)  # the members' median age
     # the terms of the cluster alone, once per cluster, then looked up for each row
     count, implied, spread = implied_summary.tables()
     with np.errstate(invalid="ignore", divide="ignore"):

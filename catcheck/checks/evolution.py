@@ -239,12 +239,11 @@ def evaluate_white_dwarf_too_young(batch: StarBatch, params: Params) -> Outcome:
 
 def evaluate_blue_straggler(batch: StarBatch, params: Params) -> Outcome:
     """Main-sequence cluster members more massive than their cluster's turn-off."""
-    codes = batch.group_codes
-    assert codes is not None, "group statistics need the profile's group"
+    age_summary, codes = batch.group_summary(CLUSTER_LOG_AGE)
     rows = np.flatnonzero(phase_is(batch, "MS") & (codes >= 0))
     mass = batch.values["mass"][rows]
     # the cluster's age is its members' median age (pass 1), else the member's own
-    _, cluster_age, _ = batch.group_stats[CLUSTER_LOG_AGE].at(codes[rows])
+    _, cluster_age, _ = age_summary.at(codes[rows])
     log_age = np.where(np.isfinite(cluster_age), cluster_age, batch.log10("age")[rows])
     turnoff, slope = _turnoff_and_slope(log_age, metallicity(batch, rows))
     with np.errstate(divide="ignore", invalid="ignore"):
