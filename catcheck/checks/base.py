@@ -110,6 +110,15 @@ def excess_sigma(values: np.ndarray, sigma: np.ndarray | float, low: float | np.
         return np.divide(excess, sigma, out=np.zeros_like(excess), where=excess != 0.0)
 
 
+def spread_at(rows: np.ndarray, size: int, values: np.ndarray,
+              fill: float | bool = np.nan) -> np.ndarray:
+    """A batch-length array holding ``values`` at ``rows`` and ``fill`` elsewhere (for
+    rules computed only on the rows they concern)."""
+    full = np.full(size, fill, dtype=np.asarray(values).dtype)
+    full[rows] = values
+    return full
+
+
 def phase_is(batch: StarBatch, *codes: str) -> np.ndarray:
     """Rows whose phase code is one of ``codes`` (False where no phase is given)."""
     from catcheck.quantities import PHASE_INDEX

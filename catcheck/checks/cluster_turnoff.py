@@ -15,13 +15,14 @@ from catcheck.checks.base import (
     excess_sigma,
     fixed_needs,
     phase_is,
+    spread_at,
 )
 from catcheck.checks.cluster_members import (
     CLUSTER_LOG_AGE,
     MEDIAN_EFFICIENCY,
     cluster_log_age,
 )
-from catcheck.checks.evolution import GIANT_PHASES, lifetime_mass, metallicity, on_rows
+from catcheck.checks.evolution import GIANT_PHASES, lifetime_mass, metallicity
 from catcheck.groups import group_labels_at
 from catcheck.physics.evolution import log_main_sequence_lifetime
 
@@ -34,11 +35,10 @@ def implied_log_age(batch: StarBatch) -> np.ndarray:
     A star that has just left the main sequence is as old as its main-sequence lifetime,
     so the evolved members of a cluster date it.
     """
-    mass, _ = lifetime_mass(batch)
     evolved = np.flatnonzero(phase_is(batch, *GIANT_PHASES))
-    (log_t,) = on_rows(evolved, batch.size, lambda m, feh: (log_main_sequence_lifetime(m, feh),),
-                       mass, metallicity(batch))
-    return log_t
+    mass, _ = lifetime_mass(batch, evolved)
+    return spread_at(evolved, batch.size,
+                     log_main_sequence_lifetime(mass, metallicity(batch, evolved)))
 
 
 def evaluate(batch: StarBatch, params: Params) -> Outcome:

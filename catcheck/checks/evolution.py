@@ -27,6 +27,7 @@ from catcheck.checks.base import (
     fmt,
     indefinite_article,
     phase_is,
+    spread_at,
 )
 from catcheck.checks.cluster_members import CLUSTER_LOG_AGE, cluster_log_age
 from catcheck.physics import evolution
@@ -67,25 +68,6 @@ def lifetime_mass(batch: StarBatch, rows: np.ndarray | None = None
     return np.where(given, initial, present), given
 
 
-def on_rows(rows: np.ndarray, size: int, function: Callable[..., tuple[np.ndarray, ...]],
-            *arrays: np.ndarray) -> tuple[np.ndarray, ...]:
-    """Evaluate ``function`` only at ``rows`` of ``arrays``; results NaN elsewhere.
-
-    Timescale lookups cost far more than the rest of a rule, and each rule concerns one
-    phase, often a small part of a catalogue.
-    """
-    return tuple(_spread(rows, size, result, np.nan)
-                 for result in function(*(a[rows] for a in arrays)))
-
-
-def _spread(rows: np.ndarray, size: int, values: np.ndarray, fill: float | bool
-            ) -> np.ndarray:
-    """A batch-length array holding ``values`` at ``rows`` and ``fill`` elsewhere."""
-    full = np.full(size, fill, dtype=np.asarray(values).dtype)
-    full[rows] = values
-    return full
-
-
 def _age_sigma(batch: StarBatch, params: Params, rows: np.ndarray, slope: np.ndarray
                ) -> np.ndarray:
     """Combined 1-sigma (dex) of log age against log timescale, at ``rows``."""
@@ -121,10 +103,10 @@ def _age_outcome(batch: StarBatch, params: Params, rows: np.ndarray, applies: np
                                       *(column[at] for column in extra))]
 
     size = batch.size
-    return Outcome(_spread(rows, size, failed, False), describe, all_ages,
-                   _spread(rows, size, log_limit, np.nan),
-                   _spread(rows, size, np.abs(deviation), np.nan),
-                   _spread(rows, size, applies, False), _spread(rows, size, beyond, False))
+    return Outcome(spread_at(rows, size, failed, False), describe, all_ages,
+                   spread_at(rows, size, log_limit, np.nan),
+                   spread_at(rows, size, np.abs(deviation), np.nan),
+                   spread_at(rows, size, applies, False), spread_at(rows, size, beyond, False))
 
 
 def _power_of_ten(logs: np.ndarray) -> np.ndarray:
@@ -266,10 +248,10 @@ def evaluate_blue_straggler(batch: StarBatch, params: Params) -> Outcome:
         ]
 
     size = batch.size
-    return Outcome(_spread(rows, size, failed, False), describe, batch.values["mass"],
-                   _spread(rows, size, turnoff, np.nan),
-                   _spread(rows, size, np.abs(deviation), np.nan),
-                   _spread(rows, size, applies, False))
+    return Outcome(spread_at(rows, size, failed, False), describe, batch.values["mass"],
+                   spread_at(rows, size, turnoff, np.nan),
+                   spread_at(rows, size, np.abs(deviation), np.nan),
+                   spread_at(rows, size, applies, False))
 
 
 def _turnoff_and_slope(log_age: np.ndarray, feh: np.ndarray

@@ -17,6 +17,7 @@ from catcheck.checks.base import (
     excess_sigma,
     fixed_needs,
     fmt,
+    spread_at,
 )
 from catcheck.physics.spectral import (
     SCALE_NAMES,
@@ -148,8 +149,8 @@ def evaluate(batch: StarBatch, params: Params) -> Outcome:
     typed_deviation[~np.isfinite(typed_deviation)] = np.nan
     cool, hot, sigma = pick(cool_by_scale), pick(hot_by_scale), pick(sigma_by_scale)
     typed_expected = 10.0 ** bands.centre[chosen, types.codes]
-    deviation = _spread(typed_deviation, typed, batch.size)
-    expected = _spread(typed_expected, typed, batch.size)
+    deviation = spread_at(typed, batch.size, typed_deviation)
+    expected = spread_at(typed, batch.size, typed_expected)
     applies = ~np.isnan(deviation)
     with np.errstate(invalid="ignore"):
         failed = applies & (deviation > params["threshold"])
@@ -178,13 +179,6 @@ def evaluate(batch: StarBatch, params: Params) -> Outcome:
         ]
 
     return Outcome(failed, describe, batch.values["teff"], expected, deviation, applies)
-
-
-def _spread(values: np.ndarray, rows: np.ndarray, size: int) -> np.ndarray:
-    """Values known at ``rows`` placed in a full-length array, NaN elsewhere."""
-    full = np.full(size, np.nan)
-    full[rows] = values
-    return full
 
 
 CHECK = Check(
