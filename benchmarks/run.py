@@ -159,8 +159,10 @@ def parallel_capacity(work: Callable[[], None]) -> float:
     for _ in range(2):
         pid = os.fork()
         if pid == 0:
-            work()
-            os._exit(0)
+            try:
+                work()
+            finally:
+                os._exit(0)
         children.append(pid)
     for pid in children:
         os.waitpid(pid, 0)

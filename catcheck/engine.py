@@ -304,10 +304,8 @@ def _group_pass(rules: Sequence[Rule], profile: Profile,
 
     Only the columns of the quantities the group rules need are read, always in this
     process, with decoding on Arrow's threads and a prefetch thread beside the sampling:
-    the pass is mostly decoding, and with worker processes each one's samples had to be
-    sent back and merged here, one after another (at 10M demo rows on 2 cores, whole runs
-    with ``--workers 2`` took 10.2-10.7 s that way and 8.5-9.7 s with this pass here;
-    memory held one set of samples instead of one per process and this one's).
+    the pass is mostly decoding, and worker processes would have to send their samples
+    back to be merged here, one after another (measured slower: DEVELOPERS.md).
     """
     plan = group_plan(rules, profile)
     if plan is None:

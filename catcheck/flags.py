@@ -44,7 +44,7 @@ def flag_records(rule_id: str, severity: str, first_row: int, positions: np.ndar
         [
             pa.array(positions.astype(np.int64) + first_row, pa.int64()),
             ids.take(pa.array(positions)),
-            repeated(rule_id, n),
+            pa.repeat(pa.scalar(rule_id, pa.string()), n),
             severities.take(pa.array(severity_codes)),
             pa.array(messages, pa.string()),
             pa.array(pick(observed), pa.float64()),
@@ -53,9 +53,3 @@ def flag_records(rule_id: str, severity: str, first_row: int, positions: np.ndar
         ],
         schema=FLAG_SCHEMA,
     )
-
-
-def repeated(text: str, n: int) -> pa.Array:
-    """A string array of ``n`` copies of ``text`` (a gather: far cheaper than building
-    ``n`` Python strings)."""
-    return pa.array([text], pa.string()).take(pa.array(np.zeros(n, dtype=np.int8)))

@@ -183,7 +183,7 @@ class _BottomSample:
         below = (keys & _HASH_MASK) < self.cutoff[codes]
         if not below.all():
             keys, values = keys[below], values[below]
-        self._offer(keys, values, in_order=True)
+        self._offer(keys, values)
 
     def merge(self, other: _BottomSample, codes: np.ndarray) -> None:
         """Take in the sample of ``other``, drawn from rows after all of this sample's.
@@ -200,19 +200,15 @@ class _BottomSample:
         self.counts[groups] += other.counts  # codes are distinct: no repeated index
         keys, values = _renumbered(other.keys, other.values, groups)
         below = np.flatnonzero((keys & _HASH_MASK) < self.cutoff[_codes_of(keys)])
-        self._offer(keys[below], values[below], in_order=True)
+        self._offer(keys[below], values[below])
 
-    def _offer(self, keys: np.ndarray, values: np.ndarray, in_order: bool = False) -> None:
-        """Queue entries for the next merge; merge when enough wait.
+    def _offer(self, keys: np.ndarray, values: np.ndarray) -> None:
+        """Queue entries, sorted by key (equal keys in row order), for the next merge;
+        merge when enough wait.
 
-        The entries come in row order, or ``in_order`` sorted by key (equal keys in row
-        order); they are queued sorted, and a group with more of them than the sample
-        keeps is cut at once: the queue is a list of short sorted runs, which a merge
-        joins in close to linear time.
+        A group with more of them than the sample keeps is cut at once: the queue is a
+        list of short sorted runs, which a merge joins in close to linear time.
         """
-        if not in_order:
-            order = _sorted_order(keys)
-            keys, values = keys[order], values[order]
         size = sample_size(int(np.count_nonzero(self.counts)), self.largest)
         keys, values = self._cut(keys, values, size)
         self.pending.append((keys, values))

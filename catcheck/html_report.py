@@ -125,8 +125,9 @@ class VisualReport:
             # imported first, once, so the forked processes draw without importing it
             if len(self.specs) > 1:
                 load_matplotlib()
-            others = [ForkedCall(functools.partial(draw, spec)) for spec in self.specs[1:]]
+            others: list[ForkedCall] = []
             try:
+                others += [ForkedCall(functools.partial(draw, spec)) for spec in self.specs[1:]]
                 figures = [draw(spec) for spec in self.specs[:1]]
                 figures += [drawing.result() for drawing in others]
             finally:

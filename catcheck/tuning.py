@@ -2,13 +2,26 @@
 
 from __future__ import annotations
 
-import contextlib
 import ctypes
 import ctypes.util
+import functools
+from typing import Any
 
 # glibc mallopt() parameters (malloc.h)
 _M_TRIM_THRESHOLD = -1
 _M_MMAP_THRESHOLD = -3
+
+
+@functools.cache
+def _glibc_function(name: str) -> Any | None:
+    """A function of the C library when it is glibc's and has it, else None."""
+    library = ctypes.util.find_library("c")
+    if not library:
+        return None
+    try:
+        return getattr(ctypes.CDLL(library), name)
+    except (OSError, AttributeError):
+        return None
 
 
 def keep_freed_memory(mmap_threshold: int = 32 << 20, trim_threshold: int = 128 << 20) -> bool:
@@ -21,13 +34,8 @@ def keep_freed_memory(mmap_threshold: int = 32 << 20, trim_threshold: int = 128 
     up to 128 MB of freed heap is kept, so peak memory grows little while the page faults
     go.  Returns False where this is not glibc (nothing done).
     """
-    name = ctypes.util.find_library("c")
-    if not name:
-        return False
-    try:
-        libc = ctypes.CDLL(name)
-        mallopt = libc.mallopt
-    except (OSError, AttributeError):
+    mallopt = _glibc_function("mallopt")
+    if mallopt is None:
         return False
     return bool(mallopt(_M_MMAP_THRESHOLD, mmap_threshold)) and bool(
         mallopt(_M_TRIM_THRESHOLD, trim_threshold))
@@ -36,15 +44,15 @@ def keep_freed_memory(mmap_threshold: int = 32 << 20, trim_threshold: int = 128 
 def release_free_memory() -> None:
     """Give freed memory back to the system: glibc's retained heap and Arrow's pool.
 
-    Call it before forking workers: a child that reuses a retained free block writes to
-    a page shared with the parent, which copies it, so every worker would otherwise
-    duplicate the parent's retained memory.
+    For a change of phase whose blocks the next phase will not reuse (the group pass's
+    samples), and before forking workers: a worker that reuses a retained free block
+    writes to a page shared with the parent, which copies it, so every worker would
+    otherwise duplicate the parent's retained memory.  Measured at 10M demo rows, all
+    packs: peak 894 -> 850 MB with one worker, 1383 -> 1155 MB with two.
     """
     import pyarrow as pa
 
     pa.default_memory_pool().release_unused()
-    name = ctypes.util.find_library("c")
-    if not name:
-        return
-    with contextlib.suppress(OSError, AttributeError):
-        ctypes.CDLL(name).malloc_trim(0)
+    malloc_trim = _glibc_function("malloc_trim")
+    if malloc_trim is not None:
+        malloc_trim(0)

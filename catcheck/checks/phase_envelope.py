@@ -80,7 +80,7 @@ def _assess(phase: np.ndarray, log_teff: np.ndarray, s_teff: np.ndarray,
     rest = np.flatnonzero(~inside)
     if bands:  # inside every band: the first quantity at its lower edge, 0 sigma out
         deviation = np.zeros(len(log_teff))
-        observed, expected = bands[0][0].astype(float), bands[0][2]
+        observed, expected = bands[0][0].astype(float), bands[0][2].copy()  # filled below
     else:
         deviation, observed, expected = (np.empty(len(log_teff)) for _ in range(3))
     worst = np.zeros(len(log_teff), dtype=np.intp)
